@@ -1,0 +1,1 @@
+"""Subcommands of the ``starlines`` command line, one light module each."""
