@@ -1,0 +1,1 @@
+"""Synthetic line-strength grids shipped with starlines (installed as ``starlines.grids``)."""
