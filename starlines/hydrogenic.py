@@ -19,7 +19,7 @@ Constants come from :mod:`astropy.constants` (CODATA 2018 in astropy >= 4).
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache
 from math import factorial, sqrt
 
 import numpy as np
@@ -124,21 +124,21 @@ def _wigner_6j_doubled(a, b, c, d, e, f) -> float:
     return pref * total
 
 
-def _radial(n: int, l: int, r: np.ndarray) -> np.ndarray:
+def _radial(n: int, ell: int, r: np.ndarray) -> np.ndarray:
     """Normalised hydrogenic radial function R_nl(r) for Z = 1, r in Bohr radii."""
     rho = 2.0 * r / n
     log_norm = 0.5 * (
-        3 * np.log(2.0 / n) + gammaln(n - l) - np.log(2.0 * n) - gammaln(n + l + 1)
+        3 * np.log(2.0 / n) + gammaln(n - ell) - np.log(2.0 * n) - gammaln(n + ell + 1)
     )
-    return np.exp(log_norm - rho / 2) * rho**l * eval_genlaguerre(n - l - 1, 2 * l + 1, rho)
+    return np.exp(log_norm - rho / 2) * rho**ell * eval_genlaguerre(n - ell - 1, 2 * ell + 1, rho)
 
 
-@lru_cache(maxsize=None)
-def _radial_integral(n: int, l: int, n2: int, l2: int) -> float:
+@cache
+def _radial_integral(n: int, ell: int, n2: int, ell2: int) -> float:
     """<n l | r | n2 l2> for Z = 1 by numerical quadrature (Bohr radii)."""
     rmax = 4.0 * max(n, n2) ** 2 + 60.0
     r = np.linspace(0.0, rmax, 40001)
-    integrand = _radial(n, l, r) * _radial(n2, l2, r) * r**3
+    integrand = _radial(n, ell, r) * _radial(n2, ell2, r) * r**3
     return float(np.trapezoid(integrand, r))
 
 
@@ -167,7 +167,7 @@ def _components(z: int, n_lower: int, n_upper: int):
     return out
 
 
-@lru_cache(maxsize=None)
+@cache
 def line_wavenumber(z: int, n_lower: int, n_upper: int) -> float:
     """Strength-weighted fine-structure centroid wavenumber (cm^-1) of n_upper -> n_lower.
 
