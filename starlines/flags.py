@@ -1,0 +1,362 @@
+"""Follow-up flags: what each flag means, how it is decided, and the deciding code.
+
+A flag is a short lowercase-hyphenated name attached to one result row. Flags come in two
+scopes:
+
+- ``spectrum`` flags are decided from one spectrum alone (its result row and its line rows)
+  by :func:`spectrum_flags`, inside the worker that analysed the file;
+- ``night`` flags need the whole night (the velocity sample), the target list or the
+  archive, and are decided by :func:`night_flags` once every file is done.
+
+Every threshold is a module constant, so the numbers printed by ``starlines flags`` and
+shown in the report are the numbers the code uses. The rationale of each threshold is in
+its comment; "common practice" marks a convention of the trade without a single source.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+__all__ = [
+    "Flag",
+    "FLAGS",
+    "flag",
+    "flag_names",
+    "spectrum_flags",
+    "night_flags",
+    "velocity_outliers",
+    "join_flags",
+    "split_flags",
+    "LOW_SNR",
+    "FAST_ROTATOR_VSINI",
+    "BROAD_EMISSION_FWHM",
+    "BROAD_EMISSION_EW",
+    "OUTLIER_NSIGMA",
+    "OUTLIER_FLOOR_KMS",
+    "SYSTEMIC_TOLERANCE_KMS",
+    "RV_METHOD_TOLERANCE_KMS",
+    "SUBTYPE_TOLERANCE",
+    "HE_NORMAL",
+    "HE_TOLERANCE",
+    "MIN_SIGNIFICANCE",
+]
+
+#: S/N per pixel below which a spectrum is flagged ``low-snr``. With ~0.5 A pixels and a
+#: 2.5 A resolution element a weak line spans ~10 pixels, so sigma(EW) ~ sqrt(10) * 0.5 A /
+#: (S/N) = 1.6 A / (S/N) (pixel-sum formula, criteria.md section 7a): at S/N 50 that is
+#: 0.03 A, a third of the weakest lines the type ratios use (He II 4541 ~ 0.1 A at late O).
+LOW_SNR = 50.0
+
+#: v sin i (km/s) above which a star is a ``fast-rotator``. OB dwarfs and giants range from
+#: < 30 to ~450 km/s and most O stars rotate slower than ~150 km/s (criteria.md 6b, Simon-Diaz
+#: & Herrero 2007 abstract; [memory] for the 150); above ~200 km/s blended lines make types
+#: and velocities less certain and such stars are Oe/Be candidates (common practice).
+FAST_ROTATOR_VSINI = 200.0
+
+#: He II 4686 emission broader than this FWHM (A, ~1300 km/s) or stronger than this EW (A,
+#: emission negative) is Wolf-Rayet-like: Of-star 4686 emission is a few A wide at most,
+#: WR emission lines are thousands of km/s wide with EWs of tens of A ([memory]).
+BROAD_EMISSION_FWHM = 20.0
+BROAD_EMISSION_EW = -10.0
+
+#: Robust velocity outlier: |rv - median| > OUTLIER_NSIGMA x 1.4826 x MAD of the night's
+#: velocities, and more than OUTLIER_FLOOR_KMS and 3 rv_err. 1.4826 MAD estimates sigma
+#: for a normal sample (common practice); 4 sigma keeps false alarms below 1 in 10^4 stars.
+OUTLIER_NSIGMA = 4.0
+OUTLIER_FLOOR_KMS = 20.0
+#: Departure (km/s) from the target list's expected systemic velocity that flags an
+#: outlier: runaway OB stars are defined by peculiar velocities above ~30-40 km/s
+#: (Blaauw 1961, [memory]).
+SYSTEMIC_TOLERANCE_KMS = 30.0
+#: Centroid and cross-correlation velocities disagree when they differ by more than this
+#: (km/s) and by more than 3 combined sigma: a sign of blends, emission or a companion.
+RV_METHOD_TOLERANCE_KMS = 15.0
+#: Subtypes (1.0 = one step O5 -> O6, B0 -> B1) beyond which two types "disagree".
+#: Digital types differ from photographic ones by up to 1.5 subtypes (criteria.md C4),
+#: so one full subtype is the smallest difference worth a look.
+SUBTYPE_TOLERANCE = 1.0
+#: Normal helium abundance by number, y = N(He)/N(H) (solar 0.085, Asplund et al. 2009,
+#: [memory]; hot-star model grids use 0.1, common practice), and the departure beyond
+#: which a star is helium-strong or helium-weak (also at least 3 sigma).
+HE_NORMAL = 0.1
+HE_TOLERANCE = 0.05
+#: A line counts as detected when measured with at least this significance (sigma).
+MIN_SIGNIFICANCE = 3.0
+
+Scope = Literal["spectrum", "night"]
+
+
+@dataclass(frozen=True)
+class Flag:
+    """One follow-up flag.
+
+    Attributes
+    ----------
+    name : str
+        Lowercase-hyphenated name used in tables.
+    description : str
+        One short sentence for the report and ``starlines flags``.
+    rule : str
+        How the flag is decided, with its threshold.
+    interest : float
+        Scientific-interest weight used by :mod:`starlines.followup` (0 = none).
+    scope : {"spectrum", "night"}
+        Whether one spectrum suffices or the whole night is needed.
+    """
+
+    name: str
+    description: str
+    rule: str
+    interest: float
+    scope: Scope = "spectrum"
+
+
+FLAGS: tuple[Flag, ...] = (
+    Flag("wr-like", "Wolf-Rayet-like broad emission",
+         f"He II 4686 in emission with FWHM > {BROAD_EMISSION_FWHM:g} A "
+         f"or EW < {BROAD_EMISSION_EW:g} A", 5.0),
+    Flag("of-emission", "Of-like emission in He II 4686 and/or N III 4634-42",
+         "He II 4686 or N III 4634/4641/4642 measured in emission "
+         f"at >= {MIN_SIGNIFICANCE:g} sigma", 3.0),
+    Flag("balmer-emission", "emission in Balmer lines (Be/Oe-like)",
+         f"any Balmer line measured in emission at >= {MIN_SIGNIFICANCE:g} sigma", 3.0),
+    Flag("double-lined", "two sets of lines: double-lined binary (SB2)",
+         "the velocity stage found two velocity components", 4.0),
+    Flag("fast-rotator", f"v sin i above {FAST_ROTATOR_VSINI:g} km/s",
+         f"v sin i > {FAST_ROTATOR_VSINI:g} km/s (blended lines; Oe/Be candidate)", 2.0),
+    Flag("helium-strong", "helium lines too strong for the subtype",
+         f"He/H by number > {HE_NORMAL:g} + {HE_TOLERANCE:g} and > 3 sigma above", 3.0),
+    Flag("helium-weak", "helium lines too weak for the subtype",
+         f"He/H by number < {HE_NORMAL:g} - {HE_TOLERANCE:g} and > 3 sigma below", 3.0),
+    Flag("type-disagreement", "line-ratio rules and model disagree on the type",
+         f"|rules subtype - model subtype| > {SUBTYPE_TOLERANCE:g} subtype", 1.0),
+    Flag("catalogue-type-differs", "type differs from the target list",
+         f"|measured - catalogue subtype| > {SUBTYPE_TOLERANCE:g} subtype", 2.0, "night"),
+    Flag("velocity-outlier", "velocity far from the night's sample or the expected value",
+         f"|rv - median| > max({OUTLIER_NSIGMA:g} x 1.4826 MAD, {OUTLIER_FLOOR_KMS:g} km/s, "
+         f"3 rv_err), or |rv - expected systemic| > max({SYSTEMIC_TOLERANCE_KMS:g} km/s, "
+         "3 rv_err)", 4.0, "night"),
+    Flag("velocity-methods-disagree", "line-centroid and cross-correlation velocities differ",
+         f"|rv - rv_ccf| > {RV_METHOD_TOLERANCE_KMS:g} km/s and > 3 combined sigma", 1.0),
+    Flag("velocity-variable", "velocity varies between nights (from the archive)",
+         "the archive's variability test rejects a constant velocity", 4.0, "night"),
+    Flag("low-snr", f"S/N per pixel below {LOW_SNR:g}",
+         f"continuum S/N < {LOW_SNR:g}: weak-line ratios and types are unreliable", 0.0),
+    Flag("not-hot-star", "no helium lines: later than about B3, or not a star",
+         f"no He I or He II absorption line detected at >= {MIN_SIGNIFICANCE:g} sigma, "
+         "or the classifier could not place the spectrum", 0.5),
+    Flag("failed", "the spectrum could not be analysed (cause in the error column)",
+         "reading or measuring raised an error", 0.0),
+)
+
+_BY_NAME = {f.name: f for f in FLAGS}
+
+
+def flag(name: str) -> Flag:
+    """Return the :class:`Flag` called ``name``.
+
+    Raises
+    ------
+    KeyError
+        With the list of valid names, if ``name`` is unknown.
+    """
+    try:
+        return _BY_NAME[name]
+    except KeyError:
+        raise KeyError(f"unknown flag {name!r}; valid: {', '.join(_BY_NAME)}") from None
+
+
+def flag_names() -> tuple[str, ...]:
+    """Names of all flags, in display order."""
+    return tuple(_BY_NAME)
+
+
+def join_flags(names: Iterable[str]) -> str:
+    """Comma-separated flags in display order (unknown names last, sorted), no duplicates."""
+    names = set(names)
+    known = [n for n in _BY_NAME if n in names]
+    return ",".join(known + sorted(names - set(known)))
+
+
+def split_flags(text: str) -> list[str]:
+    """Inverse of :func:`join_flags`."""
+    return [s for s in (text or "").split(",") if s]
+
+
+def _finite(x) -> bool:
+    try:
+        return x is not None and math.isfinite(float(x))
+    except (TypeError, ValueError):
+        return False
+
+
+def _detected(line: Mapping, *, emission: bool) -> bool:
+    if line.get("status") != "measured" or bool(line.get("emission")) != emission:
+        return False
+    sig = line.get("significance")
+    return _finite(sig) and abs(float(sig)) >= MIN_SIGNIFICANCE
+
+
+def _emission_flags(lines: Sequence[Mapping]) -> set[str]:
+    out: set[str] = set()
+    for ln in lines:
+        if not _detected(ln, emission=True):
+            continue
+        ident = str(ln.get("line", ""))
+        if ln.get("kind") == "balmer":
+            out.add("balmer-emission")
+        elif ident == "HeII4686" or ident.startswith("NIII46"):
+            out.add("of-emission")
+        if ident == "HeII4686":
+            fwhm, ew = ln.get("fwhm"), ln.get("ew")
+            if (_finite(fwhm) and fwhm > BROAD_EMISSION_FWHM) or (
+                _finite(ew) and ew < BROAD_EMISSION_EW
+            ):
+                out.add("wr-like")
+    return out
+
+
+def _helium_flags(row: Mapping) -> set[str]:
+    y, err = row.get("he_abundance"), row.get("he_abundance_err")
+    if not _finite(y):
+        return set()
+    err = float(err) if _finite(err) else 0.0
+    dy = float(y) - HE_NORMAL
+    if abs(dy) > HE_TOLERANCE and abs(dy) > 3 * err:
+        return {"helium-strong" if dy > 0 else "helium-weak"}
+    return set()
+
+
+def spectrum_flags(
+    row: Mapping, lines: Sequence[Mapping], stage_flags: Iterable[str] = ()
+) -> list[str]:
+    """Decide the flags that one spectrum alone supports.
+
+    Parameters
+    ----------
+    row : mapping
+        Result row (keys of DEVELOPERS.md "Result rows"; ``rules_subtype`` and
+        ``model_subtype`` and ``he_abundance_err`` are used when present).
+    lines : sequence of mapping
+        Per-line rows with ``line, kind, status, emission, significance, ew, fwhm``.
+    stage_flags : iterable of str
+        Flags set by the classification and velocity stages; those named like ours are
+        kept, others are ignored here (the stage's own notes keep them).
+
+    Returns
+    -------
+    list of str
+        Flag names in display order.
+    """
+    if row.get("status") == "failed":
+        return ["failed"]
+    out = {f for f in stage_flags if f in _BY_NAME and flag(f).scope == "spectrum"}
+    out |= _emission_flags(lines)
+    if row.get("rv2") is not None and _finite(row.get("rv2")):
+        out.add("double-lined")
+    if _finite(row.get("vsini")) and row["vsini"] > FAST_ROTATOR_VSINI:
+        out.add("fast-rotator")
+    out |= _helium_flags(row)
+    rs, ms = row.get("rules_subtype"), row.get("model_subtype")
+    if _finite(rs) and _finite(ms) and abs(float(rs) - float(ms)) > SUBTYPE_TOLERANCE:
+        out.add("type-disagreement")
+    rv, ccf = row.get("rv"), row.get("rv_ccf")
+    if _finite(rv) and _finite(ccf):
+        e1 = float(row.get("rv_err")) if _finite(row.get("rv_err")) else 0.0
+        e2 = float(row.get("rv_ccf_err")) if _finite(row.get("rv_ccf_err")) else 0.0
+        diff = abs(float(rv) - float(ccf))
+        if diff > RV_METHOD_TOLERANCE_KMS and diff > 3 * math.hypot(e1, e2):
+            out.add("velocity-methods-disagree")
+    if _finite(row.get("snr")) and row["snr"] < LOW_SNR:
+        out.add("low-snr")
+    he_seen = any(
+        _detected(ln, emission=False) for ln in lines if ln.get("kind") in ("hei", "heii")
+    )
+    if not he_seen or not _finite(row.get("subtype")):
+        out.add("not-hot-star")
+    return split_flags(join_flags(out))
+
+
+def velocity_outliers(
+    rv: Sequence[float], rv_err: Sequence[float] | None = None
+) -> list[bool]:
+    """Robust outliers of a velocity sample (median and MAD; see :data:`OUTLIER_NSIGMA`).
+
+    Non-finite velocities are never outliers and do not enter the statistics. Fewer than
+    five finite velocities give no outliers (the MAD means little).
+    """
+    vals = [float(v) if _finite(v) else math.nan for v in rv]
+    errs = [float(e) if rv_err is not None and _finite(e) else 0.0
+            for e in (rv_err if rv_err is not None else [None] * len(vals))]
+    good = sorted(v for v in vals if not math.isnan(v))
+    if len(good) < 5:
+        return [False] * len(vals)
+    med = _median(good)
+    sigma = 1.4826 * _median(sorted(abs(v - med) for v in good))
+    out = []
+    for v, e in zip(vals, errs):
+        limit = max(OUTLIER_NSIGMA * sigma, OUTLIER_FLOOR_KMS, 3 * e)
+        out.append(not math.isnan(v) and abs(v - med) > limit)
+    return out
+
+
+def _median(sorted_vals: Sequence[float]) -> float:
+    n = len(sorted_vals)
+    mid = n // 2
+    return sorted_vals[mid] if n % 2 else 0.5 * (sorted_vals[mid - 1] + sorted_vals[mid])
+
+
+def night_flags(
+    rows: Sequence[Mapping],
+    *,
+    expected: Sequence[Mapping | None] | None = None,
+    variable: Iterable[str] = (),
+) -> list[list[str]]:
+    """Decide the night-scope flags for every row.
+
+    Parameters
+    ----------
+    rows : sequence of mapping
+        All result rows of the night (failed ones included; they get no night flags).
+    expected : sequence of mapping or None, optional
+        Per row, the matched target-list entry with optional ``subtype`` (catalogue subtype
+        number) and ``rv`` (expected systemic velocity, km/s); None when unmatched.
+    variable : iterable of str
+        Object names the archive found velocity-variable.
+
+    Returns
+    -------
+    list of list of str
+        Night flags per row, same order as ``rows``.
+    """
+    expected = expected if expected is not None else [None] * len(rows)
+    variable = set(variable)
+    ok = [r.get("status") == "ok" and "double-lined" not in split_flags(r.get("flags", ""))
+          for r in rows]
+    sample = [r.get("rv") if use else None for r, use in zip(rows, ok)]
+    errs = [r.get("rv_err") for r in rows]
+    outlier = velocity_outliers(sample, errs)
+    result = []
+    for row, exp, out in zip(rows, expected, outlier):
+        found: set[str] = set()
+        if row.get("status") != "ok":
+            result.append([])
+            continue
+        rv = row.get("rv")
+        if out:
+            found.add("velocity-outlier")
+        if exp and _finite(exp.get("rv")) and _finite(rv):
+            err = float(row.get("rv_err")) if _finite(row.get("rv_err")) else 0.0
+            if abs(float(rv) - float(exp["rv"])) > max(SYSTEMIC_TOLERANCE_KMS, 3 * err):
+                found.add("velocity-outlier")
+        sub = row.get("subtype")
+        if exp and _finite(exp.get("subtype")) and _finite(sub):
+            if abs(float(sub) - float(exp["subtype"])) > SUBTYPE_TOLERANCE:
+                found.add("catalogue-type-differs")
+        if row.get("object") and row["object"] in variable:
+            found.add("velocity-variable")
+        result.append(split_flags(join_flags(found)))
+    return result
