@@ -1,0 +1,265 @@
+"""The night report: one self-contained HTML file.
+
+Everything is inside the file (images as base64 ``data:`` URIs, a few lines of CSS and a
+small inline script that sorts tables), so it opens offline from a disc or a mail
+attachment. Order of the page: the provisional-types statement and summary counts, the
+follow-up list, the table of all spectra (click a header to sort), night-level plots, the
+failures with their causes, the flag legend, and the per-spectrum figures.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import html
+import math
+import os
+from collections import Counter
+from collections.abc import Mapping, Sequence
+
+__all__ = ["write_report", "render_report", "night_plots"]
+
+_CSS = """
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;margin:1.5em auto;
+max-width:1200px;color:#1b2631;padding:0 1em}
+h1{font-size:1.5em;margin-bottom:.2em}h2{border-bottom:1px solid #ccd;margin-top:1.6em}
+.note{background:#fdf2e9;border-left:4px solid #d35400;padding:.5em 1em}
+table{border-collapse:collapse;font-size:.82em;width:100%}
+th,td{border-bottom:1px solid #e5e8e8;padding:.25em .45em;text-align:left;vertical-align:top}
+th{background:#eaf2f8;cursor:pointer;user-select:none;position:sticky;top:0}
+th.sorted-asc:after{content:" \\25B2"}th.sorted-desc:after{content:" \\25BC"}
+td.num{text-align:right;font-variant-numeric:tabular-nums}
+tr.failed td{color:#922b21}.flags{color:#922b21}
+.counts span{display:inline-block;margin:0 1.2em .3em 0}
+.plots img,.stars img{max-width:100%;height:auto;border:1px solid #eee;margin:.3em 0}
+.plots{display:flex;flex-wrap:wrap;gap:1em}.plots figure{margin:0;flex:1 1 360px}
+figcaption{font-size:.8em;color:#555}
+"""
+
+_JS = """
+(function(){
+  function key(td){var v=td.getAttribute('data-sort');if(v===null){v=td.textContent;}
+    var n=parseFloat(v);return isNaN(n)?v.toLowerCase():n;}
+  document.querySelectorAll('table.sortable').forEach(function(table){
+    var heads=table.querySelectorAll('thead th');
+    heads.forEach(function(th,i){th.addEventListener('click',function(){
+      var asc=!th.classList.contains('sorted-asc');
+      heads.forEach(function(h){h.classList.remove('sorted-asc','sorted-desc');});
+      th.classList.add(asc?'sorted-asc':'sorted-desc');
+      var body=table.tBodies[0];var rows=Array.prototype.slice.call(body.rows);
+      rows.sort(function(a,b){var x=key(a.cells[i]),y=key(b.cells[i]);
+        if(typeof x!==typeof y){x=String(x);y=String(y);}
+        return (x<y?-1:x>y?1:0)*(asc?1:-1);});
+      rows.forEach(function(r){body.appendChild(r);});});});});
+})();
+"""
+
+
+def _e(value) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _num(value, fmt: str) -> str:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    return format(v, fmt) if math.isfinite(v) else ""
+
+
+def _td_num(value, fmt: str) -> str:
+    text = _num(value, fmt)
+    sort = text if text else "-1e99"
+    return f'<td class="num" data-sort="{sort}">{text}</td>'
+
+
+def _img(png: bytes, alt: str, cls: str = "") -> str:
+    data = base64.b64encode(png).decode("ascii")
+    c = f' class="{cls}"' if cls else ""
+    return f'<img{c} alt="{_e(alt)}" src="data:image/png;base64,{data}">'
+
+
+def _star_name(row: Mapping) -> str:
+    name = row.get("object") or os.path.basename(str(row.get("file", "")))
+    return f"{name} [{row['label']}]" if row.get("label") else name
+
+
+def _anchor(row: Mapping) -> str:
+    return "star-" + "".join(c if c.isalnum() else "-" for c in str(row.get("figure", "")))
+
+
+def _summary(rows: Sequence[Mapping], followup, ignored) -> str:
+    from starlines.flags import split_flags
+
+    files = {r["file"] for r in rows}
+    failed = sum(r["status"] == "failed" for r in rows)
+    counts = Counter(f for r in rows for f in split_flags(r.get("flags", "")))
+    items = [("files", len(files)), ("spectra", len(rows)), ("analysed", len(rows) - failed),
+             ("failed", failed), ("on the follow-up list", len(followup)),
+             ("other files ignored", len(ignored))]
+    head = "".join(f"<span><b>{n}</b> {_e(t)}</span>" for t, n in items)
+    flags = ", ".join(f"{_e(k)}: {v}" for k, v in sorted(counts.items(), key=lambda kv: -kv[1]))
+    return f'<div class="counts">{head}</div><p>Flags raised: {flags or "none"}.</p>'
+
+
+def _followup_table(followup: Sequence[Mapping]) -> str:
+    if not followup:
+        return "<p>No spectrum calls for follow-up.</p>"
+    body = []
+    for r in followup:
+        link = f'<a href="#{_anchor(r)}">{_e(_star_name(r))}</a>' if r.get("figure") else \
+            _e(_star_name(r))
+        body.append(
+            f"<tr>{_td_num(r['followup_rank'], 'd')}<td>{link}</td><td>{_e(r.get('sptype'))}"
+            f"</td>{_td_num(r.get('rv'), '+.1f')}{_td_num(r['followup_score'], '.2f')}"
+            f"<td>{_e(r.get('followup_reason'))}</td></tr>")
+    return ('<table class="sortable" id="followup"><thead><tr><th>rank</th><th>star</th>'
+            "<th>type</th><th>rv [km/s]</th><th>score</th><th>why</th></tr></thead><tbody>"
+            + "".join(body) + "</tbody></table>")
+
+
+_ALL_COLUMNS = ("star", "file", "status", "type", "Teff [K]", "log g", "v sin i [km/s]",
+                "rv [km/s]", "rv err", "S/N", "catalogue type", "flags", "rank")
+
+
+def _all_table(rows: Sequence[Mapping]) -> str:
+    body = []
+    for r in rows:
+        name = _e(_star_name(r))
+        if r.get("figure"):
+            name = f'<a href="#{_anchor(r)}">{name}</a>'
+        cls = "spectrum failed" if r["status"] == "failed" else "spectrum"
+        rank = r.get("followup_rank") or ""
+        body.append(
+            f'<tr class="{cls}"><td>{name}</td><td>{_e(os.path.basename(str(r["file"])))}</td>'
+            f"<td>{_e(r['status'])}</td><td data-sort=\"{_num(r.get('subtype'), '.2f') or 99}\">"
+            f"{_e(r.get('sptype'))}</td>{_td_num(r.get('teff'), '.0f')}"
+            f"{_td_num(r.get('logg'), '.2f')}{_td_num(r.get('vsini'), '.0f')}"
+            f"{_td_num(r.get('rv'), '+.1f')}{_td_num(r.get('rv_err'), '.1f')}"
+            f"{_td_num(r.get('snr'), '.0f')}<td>{_e(r.get('catalogue_type'))}</td>"
+            f'<td class="flags">{_e(str(r.get("flags", "")).replace(",", ", "))}</td>'
+            f'<td class="num" data-sort="{rank or 1e9}">{rank}</td></tr>')
+    head = "".join(f"<th>{_e(c)}</th>" for c in _ALL_COLUMNS)
+    return (f'<table class="sortable" id="all-spectra"><thead><tr>{head}</tr></thead><tbody>'
+            + "".join(body) + "</tbody></table>")
+
+
+def _failures(rows: Sequence[Mapping], ignored: Sequence[str], night_dir: str | None) -> str:
+    failed = [r for r in rows if r["status"] == "failed"]
+    noted = [r for r in rows if r["status"] == "ok" and r.get("notes")]
+    parts = []
+    if failed:
+        parts.append("<table id=\"failures\"><thead><tr><th>file</th><th>part</th>"
+                     "<th>cause</th></tr></thead><tbody>" + "".join(
+                         f"<tr><td>{_e(os.path.basename(str(r['file'])))}</td>"
+                         f"<td>{_e(r.get('label'))}</td><td>{_e(r.get('error'))}</td></tr>"
+                         for r in failed) + "</tbody></table>")
+    else:
+        parts.append("<p>No spectrum failed.</p>")
+    if noted:
+        parts.append("<p>Analysed with reservations:</p><ul>" + "".join(
+            f"<li>{_e(_star_name(r))}: {_e(r['notes'])}</li>" for r in noted) + "</ul>")
+    if ignored:
+        rel = [os.path.relpath(p, night_dir) if night_dir else p for p in ignored]
+        parts.append("<p>Files not taken as spectra (by name): "
+                     + ", ".join(_e(p) for p in rel) + ".</p>")
+    return "".join(parts)
+
+
+def _legend() -> str:
+    from starlines.flags import FLAGS
+
+    return "<table id=\"flag-legend\"><thead><tr><th>flag</th><th>meaning</th><th>rule</th>" \
+           "</tr></thead><tbody>" + "".join(
+               f"<tr><td>{_e(f.name)}</td><td>{_e(f.description)}</td><td>{_e(f.rule)}</td>"
+               "</tr>" for f in FLAGS) + "</tbody></table>"
+
+
+def night_plots(rows: Sequence[Mapping]) -> dict[str, bytes]:
+    """The night-level plots as PNG bytes, by caption."""
+    from starlines.flags import LOW_SNR, split_flags
+    from starlines.plots import (
+        figure_png,
+        plot_snr,
+        plot_type_distribution,
+        plot_velocity_vs_subtype,
+    )
+
+    ok = [r for r in rows if r["status"] == "ok"]
+    sub = [r.get("subtype", math.nan) for r in ok]
+    out = {"Distribution of provisional types": figure_png(plot_type_distribution(sub))}
+    outl = ["velocity-outlier" in split_flags(r.get("flags", "")) for r in ok]
+    out["Radial velocity against type (red: velocity outliers)"] = figure_png(
+        plot_velocity_vs_subtype(sub, [r.get("rv", math.nan) for r in ok],
+                                 [r.get("rv_err", math.nan) for r in ok], flagged=outl))
+    out[f"S/N per spectrum (dashed: low-S/N threshold {LOW_SNR:g})"] = figure_png(
+        plot_snr([_star_name(r) for r in ok], [r.get("snr", math.nan) for r in ok],
+                 threshold=LOW_SNR))
+    return out
+
+
+def _star_figures(rows: Sequence[Mapping], figure_dir: str | None) -> str:
+    if not figure_dir:
+        return "<p>Figures were not made for this run.</p>"
+    parts = []
+    for r in rows:
+        path = os.path.join(figure_dir, str(r.get("figure") or ""))
+        if r.get("figure") and os.path.isfile(path):
+            with open(path, "rb") as fh:
+                png = fh.read()
+            parts.append(f'<figure id="{_anchor(r)}">{_img(png, _star_name(r), "star")}'
+                         f"<figcaption>{_e(_star_name(r))}: {_e(r.get('sptype'))} "
+                         f"{_e(r.get('flags'))}</figcaption></figure>")
+    return '<div class="stars">' + "".join(parts) + "</div>"
+
+
+def render_report(result, *, night_dir: str | None = None, figure_dir: str | None = None,
+                  plots: Mapping[str, bytes] | None = None) -> str:
+    """The report as one HTML string.
+
+    Parameters
+    ----------
+    result : starlines.triage.TriageResult
+        Rows, follow-up list and ignored files of the night.
+    night_dir : str, optional
+        Night folder (shown in the title; ignored files are shown relative to it).
+    figure_dir : str, optional
+        Folder of the per-spectrum PNGs to embed.
+    plots : mapping of str to bytes, optional
+        Night-level plots; :func:`night_plots` by default.
+    """
+    rows, followup = result.rows, result.followup
+    plots = night_plots(rows) if plots is None else plots
+    title = f"Night report: {os.path.basename(night_dir.rstrip(os.sep)) if night_dir else ''}"
+    when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    plot_html = "".join(f"<figure>{_img(png, cap, 'night')}<figcaption>{_e(cap)}"
+                        "</figcaption></figure>" for cap, png in plots.items())
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        f"<title>{_e(title)}</title><style>{_CSS}</style></head><body>"
+        f"<h1>{_e(title)}</h1><p>Made by starlines on {when}; "
+        f"{_e(night_dir or '')}</p>"
+        '<p class="note"><b>Automated types are provisional.</b> They come from measured '
+        "line ratios and a model trained on synthetic spectra; check every type you use "
+        "against the spectrum.</p>"
+        f"<h2>Summary</h2>{_summary(rows, followup, result.ignored)}"
+        f"<h2>Follow-up list</h2><p>Score = scientific interest (sum of flag weights) x "
+        f"confidence (S/N and classification certainty).</p>{_followup_table(followup)}"
+        f"<h2>All spectra</h2><p>Click a column header to sort.</p>{_all_table(rows)}"
+        f'<h2>Night plots</h2><div class="plots">{plot_html}</div>'
+        f"<h2>Failures</h2>{_failures(rows, result.ignored, night_dir)}"
+        f"<h2>Flags</h2>{_legend()}"
+        f"<h2>Spectra</h2>{_star_figures(rows, figure_dir)}"
+        f"<script>{_JS}</script></body></html>\n"
+    )
+
+
+def write_report(result, path: str, *, night_dir: str | None = None,
+                 figure_dir: str | None = None) -> str:
+    """Write :func:`render_report` to ``path``; return ``path``."""
+    text = render_report(result, night_dir=night_dir, figure_dir=figure_dir)
+    tmp = path + ".tmp"
+    with open(tmp, "w", encoding="utf-8") as fh:
+        fh.write(text)
+    os.replace(tmp, path)
+    return path
