@@ -1,0 +1,546 @@
+"""Header keywords -> units, medium and :class:`~starlines.spectrum.ObservationMeta`.
+
+Reads what a FITS header (or the ``KEY = value`` comment lines of a text spectrum) says
+about the observation. Conventions, all documented here once:
+
+* Wavelength units: ``CUNIT1``/``TUNITn``/IRAF ``units=`` strings; common spellings
+  (``angstroms``, ``AA``, ``nm``, ``um``, ``m``) are known, anything else goes through
+  :mod:`astropy.units`.
+* Medium: explicit keywords (``AIRORVAC``, ``VACUUM``, ``AIR``) win over ``CTYPE1``; per the
+  FITS WCS paper III (Greisen et al. 2006, A&A 446, 747, table 1) ``AWAV`` is air and
+  ``WAVE`` vacuum wavelength.
+* Longitudes are east positive (IAU; ``OBSGEO-L`` in paper III). A longitude whose value
+  ends in ``W`` or whose comment says it is a west (positive) longitude is negated.
+* Mid-exposure: ``MJD-MID``/``MJD-AVG``/``DATE-AVG`` if given, else the mean of start and end,
+  else start (``MJD-OBS`` or ``DATE-OBS`` with ``UT``/``TIME-OBS``) + ``EXPTIME``/2.
+* Velocity frame: ``SPECSYS`` if given (TOPOCENT/BARYCENT/HELIOCEN). Without it, an IRAF
+  ``DOPCOR`` card means the wavelengths were Doppler corrected (taken as heliocentric, the
+  IRAF ``rvcorrect`` frame); ``VHELIO`` alone is a computed, not applied, correction.
+  Barycentric-correction keywords without ``SPECSYS`` are ambiguous: a
+  :class:`~starlines.errors.StarlinesWarning` says they were taken as not applied.
+* Resolution: stored as FWHM in Angstrom; a resolving power R becomes lambda_mid / R.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import re
+import warnings
+from collections.abc import Mapping
+
+from starlines.errors import InputFormatError, StarlinesWarning
+from starlines.spectrum import ObservationMeta
+
+__all__ = [
+    "Cards",
+    "angstrom_per_unit",
+    "medium_from_cards",
+    "meta_from_cards",
+    "parse_angle",
+    "iso_to_mjd",
+]
+
+log = logging.getLogger("starlines.readers")
+
+_C_KMS = 299792.458  # speed of light, km/s (SI definition)
+
+_UNIT_ALIASES = {
+    "angstrom": 1.0, "angstroms": 1.0, "angstroem": 1.0, "a": 1.0, "aa": 1.0, "å": 1.0,
+    "ang": 1.0, "0.1nm": 1.0, "0.1 nm": 1.0,
+    "nm": 10.0, "nanometer": 10.0, "nanometers": 10.0, "nanometre": 10.0, "nanometres": 10.0,
+    "um": 1e4, "µm": 1e4, "micron": 1e4, "microns": 1e4, "micrometer": 1e4, "mum": 1e4,
+    "m": 1e10, "meter": 1e10, "meters": 1e10, "metre": 1e10, "metres": 1e10,
+    "cm": 1e8, "mm": 1e7, "pm": 0.01,
+}
+
+
+class Cards:
+    """Read-only view over one or more headers; the first that has a keyword wins.
+
+    Parameters
+    ----------
+    *headers : astropy.io.fits.Header or Mapping
+        Most specific first (data extension before primary). Plain mappings (from text
+        comment lines) have no card comments.
+    """
+
+    def __init__(self, *headers):
+        self._headers = [h for h in headers if h is not None]
+        self.used: dict = {}
+
+    def _find(self, key: str):
+        for h in self._headers:
+            if key in h:
+                return h
+        return None
+
+    def get(self, key: str, default=None):
+        """Value of ``key`` (blank strings count as absent); remembered in :attr:`used`."""
+        h = self._find(key)
+        if h is None:
+            return default
+        value = h[key]
+        if isinstance(value, str):
+            value = value.strip()
+            if not value:
+                return default
+        elif value is None or type(value).__name__ == "Undefined":
+            return default
+        self.used[key] = value
+        return value
+
+    def comment(self, key: str) -> str:
+        """Comment of ``key`` ('' for plain mappings or absent keys)."""
+        h = self._find(key)
+        comments = getattr(h, "comments", None)
+        if comments is None:
+            return ""
+        try:
+            return str(comments[key])
+        except (KeyError, IndexError):
+            return ""
+
+    def first(self, keys) -> tuple[str | None, object]:
+        """The first of ``keys`` present, and its value."""
+        for k in keys:
+            v = self.get(k)
+            if v is not None:
+                return k, v
+        return None, None
+
+
+def angstrom_per_unit(unit) -> float | None:
+    """Angstrom per one wavelength unit named by ``unit``; None if it is not a length."""
+    if unit is None:
+        return None
+    text = str(unit).strip()
+    key = text.lower().strip("[]() ")
+    if key in _UNIT_ALIASES:
+        return _UNIT_ALIASES[key]
+    import astropy.units as u
+
+    try:
+        return float(u.Unit(text, parse_strict="raise").to(u.AA))
+    except (ValueError, TypeError, u.UnitsError):
+        return None
+
+
+def _as_float(value) -> float | None:
+    if isinstance(value, bool):
+        return None
+    try:
+        out = float(value)
+    except (TypeError, ValueError):
+        return None
+    return out if math.isfinite(out) else None
+
+
+# ----------------------------------------------------------------------------- medium
+_AIR_WORDS = ("air", "a", "awav")
+_VAC_WORDS = ("vac", "vacuum", "v", "wave")
+
+
+def medium_from_cards(cards: Cards, ctype: str | None = None) -> tuple[str | None, str]:
+    """Medium stated by the header, and the keyword that stated it.
+
+    Parameters
+    ----------
+    cards : Cards
+        The header(s).
+    ctype : str, optional
+        ``CTYPE1`` or the wavelength column's ``TCTYPn``.
+
+    Returns
+    -------
+    medium : {"air", "vacuum"} or None
+    reason : str
+        e.g. ``"AIRORVAC='vac'"`` or ``"CTYPE1='AWAV'"``; empty when not stated.
+    """
+    for key in ("AIRORVAC", "AIRVAC", "WAVEMED", "WAV_MED"):
+        v = cards.get(key)
+        if isinstance(v, str):
+            low = v.lower()
+            if low in _AIR_WORDS:
+                return "air", f"{key}={v!r}"
+            if low in _VAC_WORDS:
+                return "vacuum", f"{key}={v!r}"
+    for key, true_medium in (("VACUUM", "vacuum"), ("AIR", "air")):
+        v = cards.get(key)
+        if isinstance(v, bool):
+            other = "air" if true_medium == "vacuum" else "vacuum"
+            return (true_medium if v else other), f"{key}={'T' if v else 'F'}"
+    if ctype:
+        head = str(ctype).upper()[:4]
+        if head == "AWAV":
+            return "air", f"CTYPE={ctype!r}"
+        if head == "WAVE":
+            return "vacuum", f"CTYPE={ctype!r}"
+    return None, ""
+
+
+# ----------------------------------------------------------------------------- angles, time
+_SEXA = re.compile(
+    r"^\s*([+-]?)\s*(\d+(?:\.\d*)?)[\s:hd°]+(\d+(?:\.\d*)?)(?:[\s:m']+(\d+(?:\.\d*)?))?"
+)
+
+
+def parse_angle(value, *, hours: bool = False) -> float | None:
+    """Degrees from a number or a sexagesimal string (``"05:35:17.3"``, ``"-5 23 28"``).
+
+    Strings with two or three fields are sexagesimal, in hours when ``hours`` is True.
+    A plain number (or numeric string) is taken in degrees. A trailing ``W``/``S`` negates.
+    """
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return _as_float(value)
+    if not isinstance(value, str):
+        return None
+    text = value.strip().upper()
+    sign = 1.0
+    if text[-1:] in ("W", "S"):
+        sign, text = -1.0, text[:-1].strip()
+    elif text[-1:] in ("E", "N"):
+        text = text[:-1].strip()
+    plain = _as_float(text)
+    if plain is not None:
+        return sign * plain
+    m = _SEXA.match(text)
+    if m is None:
+        return None
+    a, b, c = float(m.group(2)), float(m.group(3)), float(m.group(4) or 0.0)
+    out = a + b / 60.0 + c / 3600.0
+    if m.group(1) == "-":
+        out = -out
+    return sign * out * (15.0 if hours else 1.0)
+
+
+_ISO = re.compile(
+    r"^\s*(\d{4})-(\d{1,2})-(\d{1,2})(?:[T ](\d{1,2}):(\d{1,2})(?::(\d{1,2}(?:\.\d*)?))?)?\s*Z?\s*$"
+)
+_OLD_DATE = re.compile(r"^\s*(\d{1,2})/(\d{1,2})/(\d{2})\s*$")  # dd/mm/yy, pre-2000 FITS
+
+
+def _days_from_civil(y: int, m: int, d: int) -> int:
+    """Days since 1970-01-01 of a Gregorian date (H. Hinnant's algorithm)."""
+    y -= m <= 2
+    era = (y if y >= 0 else y - 399) // 400
+    yoe = y - era * 400
+    doy = (153 * (m + (-3 if m > 2 else 9)) + 2) // 5 + d - 1
+    doe = yoe * 365 + yoe // 4 - yoe // 100 + doy
+    return era * 146097 + doe - 719468
+
+
+def iso_to_mjd(text: str) -> tuple[float, bool] | None:
+    """MJD of an ISO-8601 (or old ``dd/mm/yy``) date; and whether it contained a time.
+
+    MJD 40587 is 1970-01-01 (the Unix epoch), so MJD = 40587 + days since then.
+    """
+    m = _ISO.match(text)
+    if m:
+        y, mo, d = int(m.group(1)), int(m.group(2)), int(m.group(3))
+        has_time = m.group(4) is not None
+        frac = 0.0
+        if has_time:
+            sec = float(m.group(6) or 0.0)
+            frac = (int(m.group(4)) * 3600 + int(m.group(5)) * 60 + sec) / 86400.0
+        return 40587 + _days_from_civil(y, mo, d) + frac, has_time
+    m = _OLD_DATE.match(text)
+    if m:
+        d, mo, yy = int(m.group(1)), int(m.group(2)), int(m.group(3))
+        return 40587 + _days_from_civil(1900 + yy, mo, d), False
+    return None
+
+
+def _time_of_day(cards: Cards) -> float | None:
+    """UT of the start from ``UT``/``UTC``/``TIME-OBS``/``UTSTART``, in days."""
+    key, v = cards.first(("TIME-OBS", "UTSTART", "UT-START", "UT", "UTC"))
+    if key is None:
+        return None
+    if isinstance(v, str) and ":" in v:
+        hours = parse_angle(v)
+        return None if hours is None else hours / 24.0
+    x = _as_float(v)
+    if x is None:
+        return None
+    if "sec" in cards.comment(key).lower() or x > 24.0:
+        return x / 86400.0
+    return x / 24.0
+
+
+def _to_utc(mjd: float, scale: str) -> float:
+    if scale in ("UTC", "UT", ""):
+        return mjd
+    from astropy.time import Time
+
+    try:
+        return float(Time(mjd, format="mjd", scale=scale.lower()).utc.mjd)
+    except ValueError:
+        log.info("time scale %r not understood; MJD taken as UTC", scale)
+        return mjd
+
+
+def _mjd(cards: Cards, exptime: float | None) -> float | None:
+    scale = str(cards.get("TIMESYS", "UTC")).upper()
+    key, v = cards.first(("MJD-MID", "MJD-AVG"))
+    if key is not None and _as_float(v) is not None:
+        return _to_utc(float(v), scale)
+    v = cards.get("DATE-AVG")
+    parsed = iso_to_mjd(v) if isinstance(v, str) else None
+    if parsed is not None and parsed[1]:
+        return _to_utc(parsed[0], scale)
+    start = _as_float(cards.get("MJD-OBS"))
+    if start is None:
+        v = cards.get("DATE-OBS") or cards.get("DATE_OBS")
+        parsed = iso_to_mjd(v) if isinstance(v, str) else None
+        if parsed is None:
+            return None
+        start, has_time = parsed
+        if not has_time:
+            tod = _time_of_day(cards)
+            if tod is None:
+                log.info("DATE-OBS %r has no time of day and no UT card; no MJD", v)
+                return None
+            start += tod
+    end = _as_float(cards.get("MJD-END"))
+    if end is not None and end >= start:
+        return _to_utc(0.5 * (start + end), scale)
+    return _to_utc(start + (exptime or 0.0) / 2.0 / 86400.0, scale)
+
+
+# ----------------------------------------------------------------------------- position, site
+_RADEC_KEYS = (
+    ("RA", "DEC"), ("OBJRA", "OBJDEC"), ("RA_OBJ", "DEC_OBJ"), ("RA_TARG", "DEC_TARG"),
+    ("TARGRA", "TARGDEC"), ("CAT-RA", "CAT-DEC"), ("OBSRA", "OBSDEC"),
+)
+
+
+def _radec(cards: Cards) -> tuple[float | None, float | None]:
+    for kra, kdec in _RADEC_KEYS:
+        ra, dec = cards.get(kra), cards.get(kdec)
+        if ra is None or dec is None:
+            continue
+        ra_hours = isinstance(ra, str) and _as_float(ra) is None
+        if not ra_hours and re.search(r"\bhours?\b|\[h\]", cards.comment(kra).lower()):
+            ra_hours = True
+        ra_deg, dec_deg = parse_angle(ra, hours=ra_hours), parse_angle(dec)
+        if ra_deg is None or dec_deg is None or not -90 <= dec_deg <= 90:
+            continue
+        return _to_icrs(cards, ra_deg % 360.0, dec_deg)
+    return None, None
+
+
+def _to_icrs(cards: Cards, ra: float, dec: float) -> tuple[float, float]:
+    """FK5/ICRS are taken as equal (they differ by < 0.1 arcsec); FK4 is converted."""
+    system = str(cards.get("RADESYS") or cards.get("RADECSYS") or "").upper()
+    equinox = _as_float(cards.get("EQUINOX") or cards.get("EPOCH"))
+    if not system:
+        system = "FK4" if equinox is not None and equinox < 1984.0 else "ICRS"
+    if system == "FK4":
+        from astropy.coordinates import FK4, SkyCoord
+
+        eq = f"B{equinox or 1950.0}"
+        c = SkyCoord(ra, dec, unit="deg", frame=FK4(equinox=eq)).icrs
+        return float(c.ra.deg), float(c.dec.deg)
+    if system not in ("ICRS", "FK5"):
+        log.info("RADESYS %r taken as ICRS", system)
+    return ra, dec
+
+
+_SITE_KEYS = (
+    ("SITELAT", "SITELONG", "SITEELEV"),
+    ("OBSGEO-B", "OBSGEO-L", "OBSGEO-H"),
+    ("LATITUDE", "LONGITUD", "ALTITUDE"),
+    ("LATITUDE", "LONGITUD", "ELEVATIO"),
+    ("OBS-LAT", "OBS-LONG", "OBS-ELEV"),
+    ("LAT-OBS", "LONG-OBS", "ALT-OBS"),
+    ("GEOLAT", "GEOLON", "GEOELEV"),
+    ("ESO TEL GEOLAT", "ESO TEL GEOLON", "ESO TEL GEOELEV"),
+)
+_WEST = re.compile(
+    r"west[ -]*(is )?(positive|\+)|positive[ -]*(to (the )?)?west|\+ ?w\b|west(ern)? long"
+    r"|long\w*\W+\(?west\)?|\(w\)|\[deg ?w\]|deg(rees)? w(est)?\b"
+)
+_EAST = re.compile(r"east[ -]*(is )?(positive|\+)|positive[ -]*(to (the )?)?east|east(ern)? long")
+
+
+def _longitude(cards: Cards, key: str) -> float | None:
+    raw = cards.get(key)
+    lon = parse_angle(raw)
+    if lon is None:
+        return None
+    if isinstance(raw, str) and raw.strip().upper().endswith(("W", "E")):
+        return lon  # the letter already fixed the sign
+    comment = cards.comment(key).lower()
+    west = bool(_WEST.search(comment)) and not _EAST.search(comment)
+    if west:
+        log.info("%s = %r is a west longitude (comment %r); negated", key, raw, comment)
+        lon = -lon
+    return (lon + 180.0) % 360.0 - 180.0
+
+
+def _site(cards: Cards, meta: ObservationMeta) -> None:
+    xyz = [_as_float(cards.get(f"OBSGEO-{a}")) for a in "XYZ"]
+    if all(v is not None for v in xyz) and math.hypot(*xyz) > 6.0e6:
+        import erfa
+
+        lon, lat, h = erfa.gc2gd(1, xyz)  # 1 = WGS84
+        meta.site_lon_deg = math.degrees(float(lon))
+        meta.site_lat_deg = math.degrees(float(lat))
+        meta.site_height_m = float(h)
+    else:
+        for klat, klon, kh in _SITE_KEYS:
+            lat = parse_angle(cards.get(klat))
+            lon = _longitude(cards, klon) if lat is not None else None
+            if lat is None or lon is None or not -90 <= lat <= 90:
+                continue
+            meta.site_lat_deg, meta.site_lon_deg = lat, lon
+            meta.site_height_m = _as_float(cards.get(kh))
+            break
+    _, name = cards.first(("OBSERVAT", "SITENAME", "TELESCOP"))
+    meta.site_name = None if name is None else str(name)
+
+
+# ----------------------------------------------------------------------------- velocity frame
+_FRAMES = {"TOPOCENT": "topocentric", "BARYCENT": "barycentric", "HELIOCEN": "heliocentric"}
+_BARY_KEYS = (
+    "BARYCORR", "BERV", "BARY_CORR", "BCV", "VBARY", "BVCORR",
+    "ESO DRS BERV", "ESO QC BERV", "ESO QC VRAD BARYCOR",
+)
+_HELIO_KEYS = ("VHELIO", "HELIOCOR", "HELIO_RV", "ESO QC VRAD HELICOR")
+
+
+def _kms(cards: Cards, key: str | None, value) -> float | None:
+    v = _as_float(value)
+    if v is None or key is None:
+        return None
+    comment = cards.comment(key).lower()
+    if re.search(r"(?<!k)m/s|m s-1|\[m/s\]", comment) and "km" not in comment:
+        v /= 1000.0
+    return v
+
+
+def _frame(cards: Cards, meta: ObservationMeta, path: str) -> None:
+    bkey, bary = cards.first(_BARY_KEYS)
+    hkey, helio = cards.first(_HELIO_KEYS)
+    bary, helio = _kms(cards, bkey, bary), _kms(cards, hkey, helio)
+    specsys = cards.get("SPECSYS")
+    if specsys is not None:
+        frame = _FRAMES.get(str(specsys).upper())
+        if frame is None:
+            raise InputFormatError(
+                f"SPECSYS {specsys!r} is not supported (expected one of {sorted(_FRAMES)})",
+                path=path,
+            )
+        meta.frame = frame
+        if frame == "barycentric":
+            meta.frame_correction_kms = bary
+        elif frame == "heliocentric":
+            meta.frame_correction_kms = helio if helio is not None else bary
+        return
+    dopcor = cards.get("DOPCOR") or cards.get("DOPCOR01")
+    if dopcor is not None:
+        # IRAF dopcor divides wavelengths by (1 + v/c): a correction +v_corr is applied by
+        # giving it -v_corr, so the correction is minus the first number of the card.
+        meta.frame = "heliocentric"
+        meta.frame_correction_kms = helio
+        if helio is None:
+            v = _as_float(str(dopcor).split()[0])
+            if v is not None:
+                meta.frame_correction_kms = -(v * _C_KMS if abs(v) < 0.01 else v)
+        return
+    if bary is not None:
+        warnings.warn(
+            f"{path}: {bkey} = {bary:.3f} km/s but no SPECSYS says whether it was applied; "
+            "wavelengths taken as topocentric",
+            StarlinesWarning,
+            stacklevel=4,
+        )
+
+
+# ----------------------------------------------------------------------------- resolution
+_R_KEYS = ("SPEC_RES", "RESPOWER")
+_FWHM_KEYS = ("FWHM", "RESOLUTN", "RESOLUTION", "RESOL", "SPECRES", "INSTRES")
+
+
+def _resolution(cards: Cards, wave_mid: float | None, step: float | None) -> float | None:
+    for key in _R_KEYS + _FWHM_KEYS:
+        x = _as_float(cards.get(key))
+        if x is None or x <= 0:
+            continue
+        comment = cards.comment(key).lower()
+        if re.search(r"arcsec|seeing|\"|psf", comment):
+            continue
+        if key in _R_KEYS or re.search(r"power|lambda ?/|\br\b|λ/", comment):
+            kind = "R"
+        elif re.search(r"pix", comment):
+            kind = "pix"
+        elif re.search(r"\bnm\b", comment):
+            kind, x = "A", x * 10.0
+        elif re.search(r"ang|\baa?\b|å", comment):
+            kind = "A"
+        else:
+            kind = "R" if x >= 200 else ("A" if x <= 50 else None)
+        if kind == "R" and wave_mid:
+            return wave_mid / x
+        if kind == "pix" and step:
+            return x * step
+        if kind == "A":
+            return x
+    return None
+
+
+# ----------------------------------------------------------------------------- all together
+_KEEP = (
+    "OBJECT", "DATE-OBS", "MJD-OBS", "EXPTIME", "RA", "DEC", "RADESYS", "TELESCOP",
+    "INSTRUME", "OBSERVAT", "SPECSYS", "CTYPE1", "CUNIT1", "BUNIT",
+)
+
+
+def meta_from_cards(
+    cards: Cards,
+    *,
+    path: str = "",
+    wave_mid: float | None = None,
+    step: float | None = None,
+) -> ObservationMeta:
+    """Build :class:`ObservationMeta` from header cards.
+
+    Parameters
+    ----------
+    cards : Cards
+        The header(s).
+    path : str
+        File name, for messages.
+    wave_mid, step : float, optional
+        Mid wavelength and pixel step (Angstrom), to turn R or pixels into a FWHM.
+
+    Returns
+    -------
+    ObservationMeta
+        With ``header`` holding the raw cards that were consulted.
+    """
+    meta = ObservationMeta()
+    _, obj = cards.first(("OBJECT", "OBJNAME", "TARGNAME", "OBJ_NAME"))
+    meta.object = None if obj is None else str(obj)
+    meta.ra_deg, meta.dec_deg = _radec(cards)
+    _, exptime = cards.first(("EXPTIME", "EXPOSURE", "ITIME", "EXP_TIME"))
+    meta.exptime = _as_float(exptime)
+    meta.mjd_mid = _mjd(cards, meta.exptime)
+    _site(cards, meta)
+    _frame(cards, meta, path)
+    meta.resolution_fwhm = _resolution(cards, wave_mid, step)
+    for key in _KEEP:
+        cards.get(key)
+    meta.header = {k: v for k, v in cards.used.items() if isinstance(v, (str, int, float))}
+    return meta
+
+
+def header_from_comments(lines: list[str]) -> Mapping[str, str]:
+    """``KEY = value`` or ``KEY: value`` pairs from text comment lines (keys upper-cased)."""
+    out: dict[str, str] = {}
+    for text in lines:
+        m = re.match(r"^\s*#+\s*([A-Za-z][\w\-]{0,30})\s*[=:]\s*(.+?)\s*$", text)
+        if m:
+            value = m.group(2).split(" / ")[0].strip().strip("'\"")
+            out[m.group(1).upper()] = value
+    return out
