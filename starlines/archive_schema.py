@@ -249,7 +249,8 @@ def inspect_archive(path: str | os.PathLike) -> int | None:
         try:
             app_id = int(conn.execute("PRAGMA application_id").fetchone()[0])
             version = user_version(conn)
-            check = conn.execute("PRAGMA quick_check").fetchone()[0]
+            check = [line for (r,) in conn.execute("PRAGMA quick_check").fetchall()
+                     for line in str(r).splitlines() if line.strip() and "***" not in line]
         finally:
             conn.close()
     except sqlite3.DatabaseError as exc:
@@ -264,8 +265,9 @@ def inspect_archive(path: str | os.PathLike) -> int | None:
     if version < 1:
         raise ArchiveError("starlines application id but no schema; left untouched",
                            path=str(p))
-    if check != "ok":
-        raise ArchiveError(f"corrupt archive (quick_check: {check}); left untouched",
+    if check != ["ok"]:
+        more = f" and {len(check) - 1} more problem(s)" if len(check) > 1 else ""
+        raise ArchiveError(f"corrupt archive (quick_check: {check[0]}{more}); left untouched",
                            path=str(p))
     return version
 
