@@ -102,6 +102,9 @@ class FileResult:
         Units of the per-line columns that have one.
     seconds : float
         Wall time spent on the file.
+    checksum : str
+        SHA-256 of the file's bytes (the archive's identity of a spectrum file; same digest
+        as :func:`starlines.archive.file_checksum`), empty when unreadable.
     """
 
     path: str
@@ -110,6 +113,21 @@ class FileResult:
     lines: list[dict] = field(default_factory=list)
     line_units: dict = field(default_factory=dict)
     seconds: float = 0.0
+    checksum: str = ""
+
+
+def file_checksum(path: str) -> str:
+    """SHA-256 hex digest of a file's bytes, empty when the file cannot be read."""
+    import hashlib
+
+    h = hashlib.sha256()
+    try:
+        with open(path, "rb") as fh:
+            while block := fh.read(1 << 20):
+                h.update(block)
+    except OSError:
+        return ""
+    return h.hexdigest()
 
 
 def file_key(path: str | os.PathLike) -> dict:
@@ -308,7 +326,7 @@ def analyse_file(path: str | os.PathLike, options: AnalysisOptions | None = None
     start = time.perf_counter()
     options = options or AnalysisOptions()
     path = os.fspath(path)
-    result = FileResult(path=path, key=file_key(path))
+    result = FileResult(path=path, key=file_key(path), checksum=file_checksum(path))
     try:
         kwargs = {"default_medium": options.default_medium}
         if options.medium:

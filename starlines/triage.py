@@ -147,7 +147,7 @@ class Journal:
         os.makedirs(self.folder, exist_ok=True)
         rec = {"version": _JOURNAL_VERSION, "key": result.key, "rows": result.rows,
                "lines": result.lines, "line_units": result.line_units,
-               "seconds": result.seconds}
+               "seconds": result.seconds, "checksum": result.checksum}
         text = json.dumps(rec, default=_json_default) + "\n"
         with open(self.path, "a", encoding="utf-8") as fh:
             fh.write(text)
@@ -210,7 +210,8 @@ def _apply_targets(rows: list[dict], targets_path: str | None) -> list[dict | No
     return [t.as_expected() if t is not None else None for t in matched]
 
 
-def _archive_variables(archive: str | None, rows: list[dict], lines: list[dict]) -> set[str]:
+def _archive_variables(archive: str | None, rows: list[dict], lines: list[dict],
+                       checksums: dict[str, str], night: str) -> set[str]:
     """Store the night's good spectra in the archive; return the velocity-variable names."""
     if not archive:
         return set()
@@ -224,7 +225,9 @@ def _archive_variables(archive: str | None, rows: list[dict], lines: list[dict])
         names = []
         for row in rows:
             if row["status"] == "ok":
-                arch.store_spectrum(row, by_spec.get((row["file"], row["label"]), []))
+                stored = dict(row, checksum=checksums.get(os.path.abspath(row["file"]), ""),
+                              night=night)
+                arch.store_spectrum(stored, by_spec.get((row["file"], row["label"]), []))
                 if row.get("object"):
                     names.append(row["object"])
         found = arch.flag_variables(sorted(set(names)))
@@ -232,9 +235,7 @@ def _archive_variables(archive: str | None, rows: list[dict], lines: list[dict])
         close = getattr(arch, "close", None)
         if close:
             close()
-    if isinstance(found, dict):
-        return {k for k, v in found.items() if v}
-    return {getattr(f, "name", f) for f in found}
+    return {name for name, res in found.items() if getattr(res, "variable", False)}
 
 
 def _table(rows: Sequence[dict], columns: Sequence[str], units: dict):
@@ -369,7 +370,9 @@ def triage_night(
         lines.extend(rec["lines"])
         line_units.update(rec["line_units"])
     expected = _apply_targets(rows, os.fspath(targets) if targets else None)
-    variable = _archive_variables(os.fspath(archive) if archive else None, rows, lines)
+    checksums = {p: rec.get("checksum", "") for p, rec in records.items()}
+    variable = _archive_variables(os.fspath(archive) if archive else None, rows, lines,
+                                  checksums, os.path.basename(night_dir))
     for row, extra in zip(rows, night_flags(rows, expected=expected, variable=variable)):
         row["flags"] = join_flags(split_flags(row["flags"]) + extra)
     followup = rank_rows(rows)
