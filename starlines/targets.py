@@ -22,6 +22,8 @@ import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
+import numpy as np
+
 from starlines.errors import ConfigError, StarlinesError
 from starlines.identity import DEFAULT_RADIUS_ARCSEC, normalise_name
 
@@ -97,7 +99,7 @@ def _cell(col, i):
     if col is None:
         return None
     value = col[i]
-    if getattr(value, "mask", False) is True or value is None:
+    if value is None or value is np.ma.masked:
         return None
     value = getattr(value, "value", value)
     return value.item() if hasattr(value, "item") else value
