@@ -38,26 +38,43 @@ QUALITY_COLUMNS = ("QUAL", "QUALITY", "DQ", "BADPIX", "MASK")
 _COLUMN_MEDIUM = {"AWAV": "air", "WAVE_AIR": "air", "WAVE_VAC": "vacuum"}
 
 
+def _cause(exc: Exception) -> str:
+    text = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    return text.split(" (note:")[0]
+
+
+def _truncation(caught) -> str | None:
+    return next((str(w.message) for w in caught if "truncated" in str(w.message)), None)
+
+
 def _open(path: str):
-    with warnings.catch_warnings():
-        warnings.filterwarnings("error", message=".*truncated.*")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         try:
-            return fits.open(path, memmap=False, lazy_load_hdus=False)
-        except (OSError, ValueError, IndexError, TypeError, UserWarning) as exc:
-            cause = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-            raise InputFormatError(f"not a readable FITS file ({cause})", path=path) from None
+            hdul = fits.open(path, memmap=False, lazy_load_hdus=False)
+        except (OSError, ValueError, IndexError, TypeError) as exc:
+            raise InputFormatError(f"not a readable FITS file ({_cause(exc)})",
+                                   path=path) from None
+    cause = _truncation(caught)
+    if cause is not None:
+        hdul.close()
+        raise InputFormatError(f"FITS file truncated ({cause})", path=path)
+    return hdul
 
 
 def _data(hdu, path: str):
     """HDU data, turning truncation and corruption into InputFormatError."""
-    with warnings.catch_warnings():
-        warnings.filterwarnings("error", message=".*truncated.*")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         try:
-            return hdu.data
-        except (OSError, ValueError, TypeError, UserWarning) as exc:
-            cause = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            data = hdu.data
+        except (OSError, ValueError, TypeError) as exc:
             raise InputFormatError(f"HDU {hdu.name!r} unreadable, file truncated or corrupt "
-                                   f"({cause})", path=path) from None
+                                   f"({_cause(exc)})", path=path) from None
+    cause = _truncation(caught)
+    if cause is not None:
+        raise InputFormatError(f"FITS file truncated ({cause})", path=path)
+    return data
 
 
 def read_fits(opts: ReadOptions) -> list[Spectrum]:
