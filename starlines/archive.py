@@ -100,7 +100,7 @@ class Archive:
         version = inspect_archive(self.path)
         if version is None:
             if not create:
-                raise ArchiveError("no archive here", path=str(self.path))
+                raise ArchiveError("no archive at this path", path=str(self.path))
             try:
                 create_archive_file(self.path)
             except (OSError, sqlite3.Error) as exc:

@@ -124,6 +124,7 @@ def usable_epoch(rv, rv_err, frame) -> str | None:
     str or None
         The reason for skipping, None for a usable epoch.
     """
+    frame = None if frame is None else str(frame)
     if frame not in COMPARABLE_FRAMES:
         return (f"velocity frame {frame!r} is not barycentric: "
                 "cannot be compared across nights")
