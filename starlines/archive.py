@@ -33,6 +33,7 @@ import hashlib
 import json
 import logging
 import math
+import numbers
 import os
 import sqlite3
 import time
@@ -157,7 +158,9 @@ class Archive:
                     time.sleep(delay)
                     delay = min(2 * delay, 1.0)
                     continue
-                raise ArchiveError(f"write failed and was rolled back ({exc})",
+                why = ("the database stayed locked by another process"
+                       if _is_locked(exc) else str(exc))
+                raise ArchiveError(f"write failed and was rolled back ({why})",
                                    path=str(self.path)) from exc
         raise AssertionError("unreachable")  # pragma: no cover
 
@@ -224,17 +227,24 @@ class Archive:
                                                    to_text(r.get("label")) or ""), []))
                 for r in rows]
 
-    def _load_stars(self, conn: sqlite3.Connection) -> list[StarRecord]:
+    def _load_stars(self, conn: sqlite3.Connection, key: str | None,
+                    dec: float | None) -> list[StarRecord]:
+        """Candidate stars: those known by ``key`` and those in a declination band."""
+        band = self.radius_arcsec / 3600.0 + 1e-9
+        lo, hi = (None, None) if dec is None else (dec - band, dec + band)
         rows = conn.execute(
-            "SELECT s.id, s.name, s.ra, s.dec, group_concat(n.name_key, char(31)) "
-            "FROM stars s LEFT JOIN star_names n ON n.star_id = s.id GROUP BY s.id"
+            "SELECT s.id, s.name, s.ra, s.dec, (SELECT group_concat(name_key, char(31)) "
+            "FROM star_names n WHERE n.star_id = s.id) FROM stars s "
+            "WHERE s.id IN (SELECT star_id FROM star_names WHERE name_key = ?) "
+            "OR s.dec BETWEEN ? AND ? ORDER BY s.id", (key, lo, hi)
         ).fetchall()
         return [StarRecord(i, name, ra, dec, frozenset(keys.split("\x1f") if keys else ()))
                 for i, name, ra, dec, keys in rows]
 
     def _attach_star(self, conn: sqlite3.Connection, values: dict) -> int | None:
         name, ra, dec = values["object"], values["ra"], values["dec"]
-        m = resolve(name, ra, dec, self._load_stars(conn), radius_arcsec=self.radius_arcsec)
+        stars = self._load_stars(conn, normalise_name(name), dec)
+        m = resolve(name, ra, dec, stars, radius_arcsec=self.radius_arcsec)
         if m.how == "none":
             log.warning("%s: no object name and no coordinates; stored without a star",
                         values["file"])
@@ -296,7 +306,8 @@ class Archive:
         """Star id from an id or a name (normalised; ``"#12"`` also means id 12)."""
         if isinstance(star, str) and star.strip().startswith("#") and star.strip()[1:].isdigit():
             star = int(star.strip()[1:])
-        if isinstance(star, int):
+        if isinstance(star, numbers.Integral):
+            star = int(star)
             if not self._query("SELECT id FROM stars WHERE id = ?", (star,)):
                 raise ArchiveError(f"no star #{star} in the archive", path=str(self.path))
             return star

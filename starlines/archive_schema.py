@@ -17,9 +17,10 @@ Version history
    (``ON DELETE CASCADE`` from ``spectra``).
 2. ``star_names`` (aliases, normalised keys), ``nights``; ``spectra.extra`` (JSON of the
    remaining result-row fields) and ``spectra.stored_at``; indexes on star and night.
+3. Index on ``stars.dec`` (the sky match reads only a declination band).
 
-To change the schema: write ``_v2_to_v3(conn)``, append it to :data:`MIGRATIONS`, let
-:data:`SCHEMA_VERSION` follow, and add a test that builds a v2 file and migrates it.
+To change the schema: write ``_v3_to_v4(conn)``, append it to :data:`MIGRATIONS`, let
+:data:`SCHEMA_VERSION` follow, and extend the migration test (it builds a v1 file and migrates it).
 """
 
 from __future__ import annotations
@@ -138,8 +139,13 @@ def _v1_to_v2(conn: sqlite3.Connection) -> None:
     conn.execute("CREATE INDEX idx_star_names_star ON star_names(star_id)")
 
 
+def _v2_to_v3(conn: sqlite3.Connection) -> None:
+    """Version 2 -> 3: index on star declination (sky match reads a declination band)."""
+    conn.execute("CREATE INDEX idx_stars_dec ON stars(dec)")
+
+
 #: Migration functions; ``MIGRATIONS[k]`` upgrades version ``k + 1`` to ``k + 2``.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1_to_v2]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1_to_v2, _v2_to_v3]
 
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 

@@ -139,7 +139,10 @@ def test_migration_from_version_1(tmp_path):
                  "VALUES (1, 'HI4340', 1.0)")
     conn.close()
     with Archive(path) as arch:
-        assert arch._query("PRAGMA user_version")[0][0] == SCHEMA_VERSION
+        assert arch._query("PRAGMA user_version")[0][0] == SCHEMA_VERSION == 3
+        indexes = {r[0] for r in arch._query("SELECT name FROM sqlite_master "
+                                             "WHERE type = 'index'")}
+        assert {"idx_spectra_star", "idx_spectra_night", "idx_stars_dec"} <= indexes
         assert arch.counts() == {"stars": 1, "star_names": 1, "spectra": 1,
                                  "line_measurements": 1, "nights": 1}
         arch.store_spectrum({"file": "y.fits", "object": "HD1", "checksum": "y",

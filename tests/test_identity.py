@@ -127,3 +127,16 @@ def test_coordinate_only_star_takes_the_name_seen_later(tmp_path):
         stars = arch.stars()
         assert list(stars["name"]) == ["CPD-30 123"]
         assert stars["n_spectra"][0] == 2
+
+
+def test_same_name_far_apart_in_the_archive(tmp_path, caplog):
+    with Archive(tmp_path / "a.db") as arch, caplog.at_level(logging.WARNING):
+        arch.store_spectrum({"file": "a.fits", "object": "HD 5", "ra": 10.0, "dec": 20.0,
+                             "checksum": "a"}, [])
+        arch.store_spectrum({"file": "b.fits", "object": "HD5", "ra": 10.0, "dec": 21.0,
+                             "checksum": "b"}, [])
+        assert len(arch.stars()) == 2
+        assert "3600.0 arcsec" in caplog.text  # 1 degree along a meridian
+        res = arch.flag_variables(["HD 5"])["HD 5"]
+        assert not res.variable and "shared by stars" in res.reason
+        assert len(arch.epochs("#2")) == 1
