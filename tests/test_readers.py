@@ -396,3 +396,46 @@ def test_describe(tmp_path):
     text = describe(read_spectra(path)[0])
     assert "3900.0-5399.5 A" in text and "3000 px" in text and "air (assumed)" in text
     assert "HD 12345" in text and "topocentric" in text and "\n" not in text
+
+
+def test_gzipped_fits_and_text(tmp_path):
+    import gzip
+
+    plain = write_image(tmp_path / "z.fits", CRVAL1=3900.0, CDELT1=0.5, CRPIX1=1.0)
+    gz = tmp_path / "z.fits.gz"
+    gz.write_bytes(gzip.compress(plain.read_bytes()))
+    np.testing.assert_allclose(read_spectra(gz)[0].wavelength[-1], 5399.5, atol=ATOL)
+    wave = 3900.0 + 0.7 * np.arange(2000)
+    tgz = tmp_path / "t.txt.gz"
+    tgz.write_bytes(gzip.compress(("# wavelength [Angstrom] flux\n" + _rows(
+        wave, flux_for(wave))).encode()))
+    np.testing.assert_allclose(read_spectra(tgz)[0].wavelength, wave, atol=ATOL)
+
+
+def test_text_named_columns_any_order(tmp_path):
+    wave = 3900.0 + 0.7 * np.arange(2000)
+    text = "# pixel flux_norm sigma wavelength_nm\n" + _rows(
+        np.arange(2000), flux_for(wave), 0.01 + 0 * wave, wave / 10, fmt="{:.5f}")
+    (spec,) = read_spectra(_write(tmp_path / "named.txt", text))
+    np.testing.assert_allclose(spec.wavelength, wave, atol=ATOL)
+    np.testing.assert_allclose(spec.uncertainty, 0.01)
+
+
+def test_text_ragged_rows_raise(tmp_path):
+    path = _write(tmp_path / "ragged.txt", "4000 1.0\n4001 1.0 0.1\n")
+    with pytest.raises(InputFormatError, match=r"ragged\.txt: line 2 has a different number"):
+        read_spectra(path)
+
+
+def test_merge_of_overlapping_fibers_picks_one(tmp_path):
+    n = 2000
+    wave = np.vstack([3900.0 + 0.5 * np.arange(n)] * 2)
+    flux = flux_for(wave)
+    flux[1, :1500] = np.nan  # fiber 2 mostly empty
+    cols = [fits.Column("WAVE", f"{n}D", unit="Angstrom", array=wave),
+            fits.Column("FLUX", f"{n}E", array=flux)]
+    fits.HDUList([fits.PrimaryHDU(), fits.BinTableHDU.from_columns(cols)]).writeto(
+        tmp_path / "fibers.fits")
+    spectra = read_spectra(tmp_path / "fibers.fits")
+    assert [s.label for s in spectra] == ["row 1", "row 2"]
+    assert read_spectrum(tmp_path / "fibers.fits").label == "row 1"
