@@ -27,7 +27,6 @@ from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
-from scipy.optimize import least_squares
 
 __all__ = [
     "C_KMS",
@@ -239,6 +238,55 @@ def profile_fwhm(area_g: float, sigma: float, area_l: float, gamma: float) -> fl
     return float(2.0 * (x0 + (half - y0) * (x1 - x0) / (y1 - y0)))
 
 
+def _levenberg_marquardt(fun_jac, p0, free, linear=False, max_iter=60, tol=1e-7):
+    """Minimise |r(p)|^2 over ``p[free]``; ``fun_jac(p)`` returns (r, J).
+
+    With ``linear`` (r linear in the free parameters) one Gauss-Newton step is exact.
+    """
+    p = p0.copy()
+    r, J = fun_jac(p)
+    if linear:
+        Jf = J[:, free]
+        try:
+            step = np.linalg.solve(Jf.T @ Jf, -(Jf.T @ r))
+        except np.linalg.LinAlgError:
+            step = np.linalg.lstsq(Jf, -r, rcond=None)[0]
+        p[free] += step
+        r, J = fun_jac(p)
+        return p, r, J
+    cost = float(r @ r)
+    lam = 1e-3
+    for _ in range(max_iter):
+        Jf = J[:, free]
+        A = Jf.T @ Jf
+        g = Jf.T @ r
+        d = np.diag(A).copy()
+        d[d <= 0] = 1.0
+        improved = False
+        while lam < 1e10:
+            try:
+                step = np.linalg.solve(A + lam * np.diag(d), -g)
+            except np.linalg.LinAlgError:
+                lam *= 10.0
+                continue
+            pn = p.copy()
+            pn[free] += step
+            rn, Jn = fun_jac(pn)
+            cn = float(rn @ rn)
+            if np.isfinite(cn) and cn <= cost:
+                improved = True
+                break
+            lam *= 8.0
+        if not improved:
+            break
+        done = cost - cn <= tol * max(cost, 1.0)
+        p, r, J, cost = pn, rn, Jn, cn
+        lam = max(lam / 5.0, 1e-9)
+        if done:
+            break
+    return p, r, J
+
+
 def fit_blend(
     model: BlendModel,
     x: np.ndarray,
@@ -247,6 +295,7 @@ def fit_blend(
     p0: np.ndarray,
     prior_sigma: np.ndarray,
     *,
+    free: np.ndarray | None = None,
     floor_chi2: bool = True,
 ) -> BlendFit:
     """Least-squares fit of ``model`` to normalized flux with Gaussian priors.
@@ -261,6 +310,8 @@ def fit_blend(
         expected, ``b1`` = 0), of the velocities and of the log-widths.
     prior_sigma : numpy.ndarray
         Prior 1-sigma for each parameter; ``inf`` means no prior (used for the areas).
+    free : numpy.ndarray of bool, optional
+        Parameters to fit; the others stay at ``p0`` with zero variance. Default all.
     floor_chi2 : bool
         If True the covariance is scaled by ``max(1, chi2_red)`` (errors never smaller than
         the stated noise); if False by ``chi2_red`` itself (noise estimated from the data).
@@ -269,38 +320,42 @@ def fit_blend(
     -------
     BlendFit
     """
+    free = np.ones(p0.size, dtype=bool) if free is None else np.asarray(free, dtype=bool)
     w = 1.0 / err
-    has_prior = np.isfinite(prior_sigma)
-    pidx = np.flatnonzero(has_prior)
+    pidx = np.flatnonzero(np.isfinite(prior_sigma) & free)
     pw = 1.0 / prior_sigma[pidx]
     pmean = p0[pidx].copy()
     n = x.size
+    rows = n + np.arange(pidx.size)
 
-    def fun(p):
-        m = model.evaluate(p, x)
-        return np.concatenate([(m - y) * w, (p[pidx] - pmean) * pw])
-
-    def jac(p):
-        _, J = model.evaluate(p, x, jac=True)
+    def fun_jac(p):
+        m, J = model.evaluate(p, x, jac=True)
+        r = np.concatenate([(m - y) * w, (p[pidx] - pmean) * pw])
         out = np.zeros((n + pidx.size, p.size))
         out[:n] = J * w[:, None]
-        out[n + np.arange(pidx.size), pidx] = pw
-        return out
+        out[rows, pidx] = pw
+        return r, out
 
-    try:
-        res = least_squares(fun, p0, jac=jac, method="lm", xtol=1e-8, ftol=1e-8,
-                            max_nfev=200)
-        p, J, r = res.x, res.jac, res.fun
-        ok = bool(np.all(np.isfinite(p)))
-    except (ValueError, np.linalg.LinAlgError):  # pragma: no cover - defensive
-        p, J, r, ok = p0, jac(p0), fun(p0), False
-    dof = max(n - (p.size - pidx.size), 1)
+    nonlinear = np.ones(p0.size, dtype=bool)
+    nonlinear[:2] = False
+    nonlinear[[i for i, c in zip(model.amp_index, model.components)]] = False
+    nonlinear[[i + 1 for i, c in zip(model.amp_index, model.components) if c.shape == "wing"]] \
+        = False
+    linear = not np.any(free & nonlinear)
+    p, r, J = _levenberg_marquardt(fun_jac, p0, np.flatnonzero(free), linear=linear)
+    ok = bool(np.all(np.isfinite(p)))
+    nfree = int(free.sum())
+    dof = max(n - (nfree - pidx.size), 1)
     chi2_red = float(np.sum(r[:n] ** 2) / dof)
     scale = max(1.0, chi2_red) if floor_chi2 else max(chi2_red, 0.25)
+    fi = np.flatnonzero(free)
+    Jf = J[:, fi]
     try:
-        cov = np.linalg.inv(J.T @ J) * scale
+        cf = np.linalg.inv(Jf.T @ Jf) * scale
     except np.linalg.LinAlgError:
-        cov = np.linalg.pinv(J.T @ J) * scale
+        cf = np.linalg.pinv(Jf.T @ Jf) * scale
+    cov = np.zeros((p.size, p.size))
+    cov[np.ix_(fi, fi)] = cf
     rms = float(np.sqrt(np.mean((r[:n] / w) ** 2)))
     return BlendFit(model=model, p=p, cov=cov, chi2_red=chi2_red, residual_rms=rms, success=ok)
 

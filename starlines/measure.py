@@ -1,0 +1,325 @@
+"""Equivalent widths, centroids, velocities and widths of every catalogue line in range.
+
+Each fit group planned by :mod:`starlines.blends` is fitted once, simultaneously, in the
+continuum-normalized spectrum (:mod:`starlines.profiles`): Balmer lines as a Gaussian core
+plus Lorentzian wing, all other lines as Gaussians, on a local linear baseline whose prior
+is the continuum placement and its error from :mod:`starlines.continuum`. The equivalent
+width of a line is the area of its fitted component (so wings beyond the window count and
+neighbours do not), positive for absorption and negative for emission.
+
+Uncertainties come from the fit covariance. The pixel errors are the spectrum's
+uncertainty array when given, else the DER_SNR noise; the covariance is then scaled by the
+reduced chi-square of the fit residuals (never below 1 with a stated uncertainty array),
+so unmodelled structure, correlated noise and weak neighbours inflate the error instead of
+being ignored; the baseline prior adds the continuum-placement term.
+
+Differences from a plain integration such as ``specutils.analysis.equivalent_width``: that
+integrates 1 - F/F_c over a fixed window on a given continuum; here blends are separated by
+the profile fit, a local baseline absorbs residual continuum slope, wings beyond the window
+are included through the profile, and every number carries an error. On an isolated
+Gaussian on a flat continuum both agree to ~1 % (``tests/test_measure.py``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from starlines.blends import FitGroup, PlannedLine, plan_lines
+from starlines.continuum import ContinuumFit, fit_continuum
+from starlines.errors import MeasurementError
+from starlines.lines import Line, line, lines_in_range
+from starlines.profiles import (
+    C_KMS,
+    FWHM_PER_SIGMA,
+    BlendFit,
+    BlendModel,
+    Component,
+    fit_blend,
+    gaussian,
+    lorentzian,
+    profile_fwhm,
+)
+from starlines.spectrum import Spectrum
+from starlines.vsini import VsiniResult, vsini_kernel_fit
+
+__all__ = ["measure_lines", "measure_spectrum", "Measurement", "STATUSES",
+           "DETECTION_SIGMA", "NEAR_MARGIN"]
+
+#: Line statuses, in the order of the contract.
+STATUSES = ("measured", "not detected", "blended", "outside range", "masked")
+#: A line is detected when |EW| / EW error reaches this (common practice: 3 sigma).
+DETECTION_SIGMA = 3.0
+#: Lines up to this far (Angstrom) outside the spectrum still get an "outside range" row.
+NEAR_MARGIN = 30.0
+#: Floor of the relative continuum-placement prior on the local baseline (common practice).
+CONTINUUM_FLOOR = 1e-3
+#: He I lines tried, in order, for v sin i.
+VSINI_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026")
+
+_COLUMNS = ("ew", "ew_err", "centroid", "centroid_err", "rv", "rv_err", "fwhm", "depth",
+            "significance", "chi2_red")
+
+
+@dataclass
+class Measurement:
+    """A spectrum, its continuum fit and its line table."""
+
+    spectrum: Spectrum
+    continuum: ContinuumFit
+    table: object  # astropy.table.QTable
+
+
+def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
+    """Starting parameters (areas by linear least squares), prior widths, free parameters.
+
+    Velocities and widths are fitted only for components detected in the linear fit with
+    the expected shape; the others keep that shape and only their area is fitted.
+    """
+    p = np.zeros(model.npar)
+    prior = np.full(model.npar, np.inf)
+    p[0], prior[0:2] = 1.0, np.hypot(cerr, CONTINUUM_FLOOR)
+    for k, (c, pl) in enumerate(zip(model.components, members)):
+        iv, iw = 2 + c.vgroup, 2 + model.nv + c.wgroup
+        p[iv] = v0
+        if c.shape == "wing":
+            prior[iv] = 100.0
+            p[iw], prior[iw] = np.log(np.hypot(fwhm, 3.0) / FWHM_PER_SIGMA), 1.0
+            ia = model.amp_index[k]
+            p[ia + 2], prior[ia + 2] = np.log(2.5), 1.0
+        else:
+            prior[iv] = max(50.0, 0.5 * C_KMS * pl.fwhm / pl.rest)
+            p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.5
+    cols = []
+    for c in model.components:
+        mu = c.rest * (1.0 + v0 / C_KMS)
+        cols.append(gaussian(x, mu, np.exp(p[2 + model.nv + c.wgroup])))
+        if c.shape == "wing":
+            cols.append(lorentzian(x, mu, 2.5))
+    X = np.column_stack([np.ones_like(x), (x - model.xmid) / model.halfspan, *[-q for q in cols]])
+    try:
+        inv = np.linalg.inv(X.T @ X)
+        sol, var = inv @ (X.T @ y), np.diag(inv) * float(np.mean(err**2))
+    except np.linalg.LinAlgError:
+        sol, var = np.linalg.lstsq(X, y, rcond=None)[0], np.full(X.shape[1], np.inf)
+    free = np.zeros(model.npar, dtype=bool)
+    free[:2] = True
+    j = 2
+    for c, ia in zip(model.components, model.amp_index):
+        nj = 2 if c.shape == "wing" else 1
+        p[ia:ia + nj] = sol[j:j + nj]
+        free[ia:ia + nj] = True
+        strong = abs(sol[j:j + nj].sum()) > DETECTION_SIGMA * np.sqrt(var[j:j + nj].sum())
+        if strong:  # let its shape float; weak lines keep the expected shape
+            free[[2 + c.vgroup, 2 + model.nv + c.wgroup]] = True
+            if c.shape == "wing":
+                free[ia + 2] = True
+        j += nj
+    return p, prior, free
+
+
+def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
+    i0, i1 = np.searchsorted(w, [g.lo, g.hi])
+    m = good[i0:i1]
+    x, yy, ee = w[i0:i1][m], y[i0:i1][m], e[i0:i1][m]
+    comps = [
+        Component(pl.line.id, pl.rest, "wing" if pl.line.kind == "balmer" else "gauss", vg, wg)
+        for pl, vg, wg in zip(g.members, g.vgroup, g.wgroup)
+    ]
+    model = BlendModel(comps, 0.5 * (g.lo + g.hi), 0.5 * (g.hi - g.lo))
+    if x.size < model.npar + 3:
+        return None, x
+    p0, prior, free = _initial(model, g.members, x, yy, ee, fwhm, v0,
+                               float(np.mean(cerr[i0:i1])))
+    return fit_blend(model, x, yy, ee, p0, prior, free=free, floor_chi2=floor_chi2), x
+
+
+def _component_row(fit: BlendFit, k: int) -> dict:
+    ew, ew_err = fit.ew(k)
+    cen, cen_err = fit.centre(k)
+    s, gam = fit.widths(k)
+    ia = fit.model.amp_index[k]
+    ag = fit.p[ia]
+    al = fit.p[ia + 1] if gam > 0 else 0.0
+    depth = ag / (s * np.sqrt(2.0 * np.pi)) + (al / (np.pi * gam) if gam > 0 else 0.0)
+    sig = abs(ew) / ew_err if ew_err > 0 else 0.0
+    rest = fit.model.components[k].rest
+    row = dict(ew=ew, ew_err=ew_err, depth=float(depth), significance=float(sig),
+               chi2_red=fit.chi2_red, centroid=np.nan, centroid_err=np.nan, rv=np.nan,
+               rv_err=np.nan, fwhm=np.nan)
+    if sig >= DETECTION_SIGMA and fit.success:
+        row.update(centroid=cen, centroid_err=cen_err, rv=(cen / rest - 1.0) * C_KMS,
+                   rv_err=cen_err / rest * C_KMS,
+                   fwhm=profile_fwhm(abs(ag), s, abs(al), gam) if gam > 0
+                   else FWHM_PER_SIGMA * s)
+        row["status"] = "measured"
+    else:
+        row["status"] = "not detected"
+    row["emission"] = bool(row["status"] == "measured" and ew < 0)
+    return row
+
+
+def _vsini(results, fits, w, y, e, good, cf, resolution, res_source) -> VsiniResult | None:
+    for ident in VSINI_LINES:
+        r = results.get(ident)
+        if r is None or r["status"] != "measured" or r["emission"] or r["significance"] < 10:
+            continue
+        fit, k = fits[ident]
+        half = 1.2 * r["fwhm"] + 2.0 * resolution
+        i0, i1 = np.searchsorted(w, [r["centroid"] - half, r["centroid"] + half])
+        sel = good[i0:i1]
+        x = w[i0:i1][sel]
+        if x.size < 10:
+            continue
+        base = fit.p[0] + fit.p[1] * (x - fit.model.xmid) / fit.model.halfspan
+        others = sum((fit.model.component_profile(fit.p, x, j)
+                      for j in range(len(fit.model.components)) if j != k), np.zeros_like(x))
+        yc = (y[i0:i1][sel] + others) / base
+        return vsini_kernel_fit(x, yc, e[i0:i1][sel], rest=fit.model.components[k].rest,
+                                centre=r["centroid"], instrument_fwhm=resolution,
+                                line_id=ident)
+    return None
+
+
+def _resolve_lines(spec: Spectrum, lines) -> list[Line]:
+    if lines is None:
+        w = spec.wavelength
+        return lines_in_range(w[0] - NEAR_MARGIN, w[-1] + NEAR_MARGIN, medium=spec.medium)
+    out = [line(x) if isinstance(x, str) else x for x in lines]
+    return sorted(out, key=lambda ln: ln.wavelength_air)
+
+
+def _resolution(cf: ContinuumFit, results, planned) -> tuple[float, str]:
+    if cf.resolution_source in ("header", "argument"):
+        return cf.instrument_fwhm, cf.resolution_source
+    narrow = [results[p.line.id]["fwhm"] for p in planned
+              if p.line.kind in ("metal", "hei") and p.line.id in results
+              and results[p.line.id]["status"] == "measured"
+              and results[p.line.id]["significance"] > 10 and not results[p.line.id]["emission"]]
+    if narrow:
+        return float(max(min(narrow), cf.instrument_fwhm)), "estimated (narrowest line)"
+    return cf.instrument_fwhm, cf.resolution_source
+
+
+def measure_lines(spec: Spectrum, *, continuum: ContinuumFit | None = None, lines=None):
+    """Measure every catalogue line in or near the range of ``spec``.
+
+    Parameters
+    ----------
+    spec : Spectrum
+    continuum : ContinuumFit, optional
+        Default :func:`starlines.continuum.fit_continuum` of ``spec``.
+    lines : list of str or Line, optional
+        Lines to measure; default every catalogue line within ``NEAR_MARGIN`` of the range.
+
+    Returns
+    -------
+    astropy.table.QTable
+        One row per line (columns in the module contract, see DEVELOPERS.md).
+
+    Raises
+    ------
+    MeasurementError
+        If no catalogue line lies in or near the spectrum.
+    """
+    spec.validate()
+    cf = continuum if continuum is not None else fit_continuum(spec)
+    todo = _resolve_lines(spec, lines)
+    if not todo:
+        raise MeasurementError(
+            f"no catalogue line within {spec.wavelength[0]:.1f}-{spec.wavelength[-1]:.1f} A",
+            path=spec.path)
+    w = spec.wavelength
+    good = spec.good & np.isfinite(cf.normalized)
+    y = np.where(good, cf.normalized, 1.0)
+    e = cf.normalized_err
+    planned, groups = plan_lines(todo, w, good, spec.medium, cf.line_fwhm, cf.velocity_guess)
+    results: dict[str, dict] = {}
+    fits: dict[str, tuple[BlendFit, int]] = {}
+    floor = cf.snr_source == "uncertainty"
+    for gi, g in enumerate(groups):
+        fit, _ = _fit_group(g, w, y, e, good, cf.continuum_err, cf.line_fwhm,
+                            cf.velocity_guess, floor)
+        for k, pl in enumerate(g.members):
+            if fit is None:
+                pl.status = "masked"
+                continue
+            results[pl.line.id] = dict(_component_row(fit, k), fit_group=gi)
+            fits[pl.line.id] = (fit, k)
+    resolution, res_source = _resolution(cf, results, planned)
+    vs = _vsini(results, fits, w, y, e, good, cf, resolution, res_source)
+    return _build_table(spec, cf, planned, results, resolution, res_source, vs)
+
+
+def _build_table(spec, cf, planned: list[PlannedLine], results, resolution, res_source, vs):
+    import astropy.units as u
+    from astropy.table import QTable
+
+    n = len(planned)
+    cols = {c: np.full(n, np.nan) for c in _COLUMNS}
+    status, emission, group = [], np.zeros(n, dtype=bool), np.full(n, -1)
+    for i, pl in enumerate(planned):
+        r = results.get(pl.line.id)
+        if r is None or pl.status:
+            status.append(pl.status or "masked")
+            continue
+        for c in _COLUMNS:
+            cols[c][i] = r[c]
+        status.append(r["status"])
+        emission[i], group[i] = r["emission"], r["fit_group"]
+    t = QTable()
+    t["line"] = [p.line.id for p in planned]
+    t["ion"] = [p.line.ion for p in planned]
+    t["kind"] = [p.line.kind for p in planned]
+    t["wavelength_air"] = np.array([p.line.wavelength_air for p in planned]) * u.AA
+    t["wavelength_rest"] = np.array([p.rest for p in planned]) * u.AA
+    for c in ("ew", "ew_err", "centroid", "centroid_err", "fwhm"):
+        t[c] = cols[c] * u.AA
+    t["rv"] = cols["rv"] * (u.km / u.s)
+    t["rv_err"] = cols["rv_err"] * (u.km / u.s)
+    for c in ("depth", "significance", "chi2_red"):
+        t[c] = cols[c]
+    t["status"] = status
+    t["emission"] = emission
+    t["blended_with"] = [",".join(p.blended_with) for p in planned]
+    t["fit_group"] = group
+    for c in ("ew", "ew_err", "fwhm", "depth"):
+        t[c].info.format = ".4f"
+    for c in ("centroid", "centroid_err", "rv", "rv_err", "significance", "chi2_red"):
+        t[c].info.format = ".3f"
+    t.meta.update(
+        snr=float(cf.snr), snr_source=cf.snr_source, medium=spec.medium,
+        medium_assumed=bool(spec.medium_assumed),
+        resolution_fwhm=float(resolution), resolution_source=res_source,
+        line_fwhm=float(cf.line_fwhm),
+        vsini=float(vs.vsini) if vs else float("nan"),
+        vsini_err=float(vs.vsini_err) if vs else float("nan"),
+        vsini_upper_limit=bool(vs.upper_limit) if vs else False,
+        vsini_line=vs.line if vs else "", vsini_method=vs.method if vs else "",
+        vsini_floor=float(vs.floor) if vs else float("nan"),
+        continuum_scatter=float(cf.scatter), continuum_fraction_kept=float(cf.fraction_kept),
+        continuum_already_normalized=bool(cf.already_normalized),
+        reference_line=cf.reference_line,
+        detection_sigma=DETECTION_SIGMA,
+    )
+    return t
+
+
+def measure_spectrum(spec: Spectrum, *, lines=None) -> Measurement:
+    """Continuum fit plus line measurement of one spectrum.
+
+    Parameters
+    ----------
+    spec : Spectrum
+    lines : list of str or Line, optional
+        Passed to :func:`measure_lines`.
+
+    Returns
+    -------
+    Measurement
+    """
+    spec.validate()
+    cf = fit_continuum(spec)
+    return Measurement(spectrum=spec, continuum=cf,
+                       table=measure_lines(spec, continuum=cf, lines=lines))
