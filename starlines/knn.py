@@ -1,0 +1,305 @@
+"""Nearest-neighbour MK classifier trained on the synthetic grid's line ratios.
+
+Features are log10 EW ratios of robust line pairs and the log10 EW of two Balmer lines
+(:data:`FEATURES`). The grid is resampled with realistic measurement errors
+(:func:`training_set`), each model labelled with a subtype through the published Teff
+scales (:func:`starlines.teffscale.subtype_for_parameters`). :class:`LineRatioNeighbors` is
+a standard scikit-learn classifier over subtype classes; a spectrum with missing lines
+simply has NaN features, and distances use only the features it has (a masked distance),
+so no imputation is needed. Teff, log g, He/H, subtype and luminosity come from the
+neighbours' weighted median and spread (:meth:`LineRatioNeighbors.predict_parameters`).
+
+The default model is fitted once per process, lazily (:func:`default_model`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.utils.validation import check_is_fitted
+
+from starlines.rules import DETECTION_SIGMA, EW_FLOOR, LineValue
+from starlines.sptype import round_subtype
+from starlines.teffscale import subtype_for_parameters
+
+__all__ = [
+    "Feature",
+    "FEATURES",
+    "feature_vector",
+    "feature_matrix",
+    "training_set",
+    "LineRatioNeighbors",
+    "default_model",
+    "TARGETS",
+]
+
+
+@dataclass(frozen=True)
+class Feature:
+    """log10 of summed EW(numerator) / summed EW(denominator); no denominator: log10 EW."""
+
+    name: str
+    numerator: tuple[str, ...]
+    denominator: tuple[str, ...] = ()
+
+
+#: Features used by the model (pairs chosen for being close in wavelength and unblended).
+FEATURES: tuple[Feature, ...] = (
+    Feature("HeI4471/HeII4541", ("HeI4471",), ("HeII4541",)),
+    Feature("HeI4144/HeII4200", ("HeI4144",), ("HeII4200",)),
+    Feature("HeI4388/HeII4541", ("HeI4388",), ("HeII4541",)),
+    Feature("SiIII4553/HeII4541", ("SiIII4553",), ("HeII4541",)),
+    Feature("SiIV4089/SiIII4553", ("SiIV4089",), ("SiIII4553",)),
+    Feature("SiII4128+4131/SiIII4553", ("SiII4128", "SiII4131"), ("SiIII4553",)),
+    Feature("MgII4481/HeI4471", ("MgII4481",), ("HeI4471",)),
+    Feature("CII4267/HeI4471", ("CII4267",), ("HeI4471",)),
+    Feature("HeII4686/HeI4713", ("HeII4686",), ("HeI4713",)),
+    Feature("SiIV4089/HeI4144", ("SiIV4089",), ("HeI4144",)),
+    Feature("HeI4471/HI4340", ("HeI4471",), ("HI4340",)),
+    Feature("HeII4541/HI4340", ("HeII4541",), ("HI4340",)),
+    Feature("HI4340", ("HI4340",)),
+    Feature("HI4102", ("HI4102",)),
+)
+
+#: Columns of the neighbours' continuous targets.
+TARGETS = ("subtype", "lumnumber", "teff", "logg", "he")
+
+
+def _effective(ew: np.ndarray, err: np.ndarray) -> np.ndarray:
+    """EW used in a log: at least the 3-sigma detection limit and :data:`EW_FLOOR`."""
+    return np.maximum(np.maximum(ew, DETECTION_SIGMA * err), EW_FLOOR)
+
+
+def feature_matrix(ew: Mapping[str, np.ndarray], err: Mapping[str, np.ndarray],
+                   features=FEATURES) -> np.ndarray:
+    """Feature matrix from EW and error arrays per line id (missing ids -> NaN features)."""
+    n = len(next(iter(ew.values())))
+    out = np.full((n, len(features)), np.nan)
+    for j, f in enumerate(features):
+        parts = []
+        for group in (f.numerator, f.denominator):
+            if not group:
+                parts.append(np.ones(n))
+                continue
+            if any(i not in ew for i in group):
+                break
+            e = sum(np.asarray(ew[i], float) for i in group)
+            s = np.sqrt(sum(np.asarray(err[i], float) ** 2 for i in group))
+            parts.append(_effective(e, s))
+        else:
+            out[:, j] = np.log10(parts[0] / parts[1])
+    return out
+
+
+def feature_vector(values: Mapping[str, LineValue], features=FEATURES) -> np.ndarray:
+    """Features of one spectrum; lines missing, unusable or in emission give NaN."""
+    ok = {k: v for k, v in values.items() if v.usable and not v.in_emission}
+    ew = {k: np.array([v.ew]) for k, v in ok.items()}
+    err = {k: np.array([v.err if np.isfinite(v.err) else 0.0]) for k, v in ok.items()}
+    if not ew:
+        return np.full(len(features), np.nan)
+    return feature_matrix(ew, err, features)[0]
+
+
+def training_set(grid, *, copies: int = 8, abs_err=(0.02, 0.10), rel_err=(0.05, 0.10),
+                 seed: int = 1, features=FEATURES):
+    """Noise-augmented features and targets from the grid.
+
+    Each grid model is copied ``copies`` times; every EW gets a Gaussian error of
+    a + b * EW with a uniform in ``abs_err`` (Angstrom) and b uniform in ``rel_err``
+    (drawn per copy), the size of real EW errors at S/N ~ 50-300 and R ~ 2000
+    (criteria.md section 7a, pixel-sum formula; common practice for the relative part).
+
+    Returns
+    -------
+    X : ndarray (n, n_features)
+    y : ndarray (n,)
+        Subtype classes (standard subtypes, :func:`starlines.sptype.round_subtype`).
+    targets : ndarray (n, 5)
+        :data:`TARGETS` per row.
+    groups : ndarray (n,)
+        Index of the grid model each row was drawn from (for ``fit(groups=...)``).
+    """
+    rng = np.random.default_rng(seed)
+    ids = sorted({i for f in features for i in f.numerator + f.denominator})
+    ids = [i for i in ids if f"ew_{i}" in grid.colnames]
+    base = {i: np.asarray(grid[f"ew_{i}"], float) for i in ids}
+    n = len(grid)
+    sub, lum = subtype_for_parameters(np.asarray(grid["teff"], float),
+                                      np.asarray(grid["logg"], float))
+    he = np.asarray(grid["he"], float) if "he" in grid.colnames else np.full(n, np.nan)
+    tgt = np.column_stack([sub, lum, grid["teff"], grid["logg"], he]).astype(float)
+    xs, ts = [], []
+    for _ in range(copies):
+        a = rng.uniform(*abs_err, size=n)
+        b = rng.uniform(*rel_err, size=n)
+        ew, err = {}, {}
+        for i, e in base.items():
+            sigma = a + b * np.abs(e)
+            ew[i] = e + rng.normal(0.0, 1.0, n) * sigma
+            err[i] = sigma
+        xs.append(feature_matrix(ew, err, features))
+        ts.append(tgt)
+    X, targets = np.vstack(xs), np.vstack(ts)
+    y = np.array([round_subtype(s) for s in targets[:, 0]])
+    groups = np.tile(np.arange(n), copies)
+    return X, y, targets, groups
+
+
+class LineRatioNeighbors(ClassifierMixin, BaseEstimator):
+    """k-nearest-neighbour subtype classifier with a masked distance for missing features.
+
+    Parameters
+    ----------
+    n_neighbors : int
+        Neighbours used for votes and parameter estimates.
+    feature_floor : float
+        Added in quadrature to each feature's scale (dex): the model's own systematic
+        error, so that no single very precise ratio dominates the distance.
+    """
+
+    def __init__(self, n_neighbors: int = 30, feature_floor: float = 0.05):
+        self.n_neighbors = n_neighbors
+        self.feature_floor = feature_floor
+
+    def fit(self, X, y, targets=None, groups=None):
+        """Store the training features, classes and (optionally) continuous targets.
+
+        Parameters
+        ----------
+        X : array (n, n_features)
+            Finite features.
+        y : array (n,)
+            Subtype classes.
+        targets : array (n, len(TARGETS)), optional
+            Subtype, luminosity number, Teff, log g, He/H for :meth:`predict_parameters`.
+        groups : array (n,), optional
+            Which noise-free model each row is a noisy copy of. The distance scale of each
+            feature is then its measurement-noise spread (median over groups of the robust
+            standard deviation), so features carry weight by how well they are measured;
+            without groups the median within-class spread is used.
+        """
+        X = np.asarray(X, float)
+        y = np.asarray(y)
+        if X.ndim != 2 or len(X) != len(y) or not np.all(np.isfinite(X)):
+            raise ValueError("X must be a finite 2-D array with one row per label")
+        self.classes_, self.y_index_ = np.unique(y, return_inverse=True)
+        self.X_ = X
+        labels = np.unique(groups, return_inverse=True)[1] if groups is not None \
+            else self.y_index_
+        self.scale_ = np.hypot(_median_spread(X, labels), self.feature_floor)
+        self.targets_ = None if targets is None else np.asarray(targets, float)
+        self.n_features_in_ = X.shape[1]
+        return self
+
+    def kneighbors(self, X):
+        """Indices and masked distances of the nearest training rows, per query row."""
+        check_is_fitted(self, "X_")
+        X = np.atleast_2d(np.asarray(X, float))
+        k = min(self.n_neighbors, len(self.X_))
+        idx = np.zeros((len(X), k), int)
+        dist = np.full((len(X), k), np.inf)
+        for r, x in enumerate(X):
+            ok = np.isfinite(x)
+            if not ok.any():
+                idx[r] = -1
+                continue
+            d2 = (((self.X_[:, ok] - x[ok]) / self.scale_[ok]) ** 2).mean(axis=1)
+            part = np.argpartition(d2, k - 1)[:k]
+            order = part[np.argsort(d2[part])]
+            idx[r], dist[r] = order, np.sqrt(d2[order])
+        return dist, idx
+
+    @staticmethod
+    def _weights(dist: np.ndarray) -> np.ndarray:
+        w = 1.0 / (dist + 0.3)  # soft inverse-distance weights (0.3 = typical scaled noise)
+        return w / w.sum(axis=1, keepdims=True)
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Weighted votes of the neighbours over :attr:`classes_` (rows without features: NaN)."""
+        return self._proba(*self.kneighbors(X))
+
+    def _proba(self, dist, idx):
+        out = np.full((len(idx), len(self.classes_)), np.nan)
+        for r in range(len(idx)):
+            if idx[r, 0] < 0:
+                continue
+            out[r] = np.bincount(self.y_index_[idx[r]], weights=self._weights(dist)[r],
+                                 minlength=len(self.classes_))
+        return out
+
+    def predict(self, X) -> np.ndarray:
+        """Most probable subtype class (NaN for rows without any feature)."""
+        p = self.predict_proba(X)
+        out = np.full(len(p), np.nan)
+        good = np.isfinite(p[:, 0])
+        out[good] = self.classes_[np.argmax(p[good], axis=1)].astype(float)
+        return out
+
+    def predict_parameters(self, X) -> tuple[np.ndarray, np.ndarray]:
+        """Weighted median and spread (half the 16-84 % range) of :data:`TARGETS`.
+
+        Returns
+        -------
+        value, error : ndarray (n, len(TARGETS))
+        """
+        return self._parameters(*self.kneighbors(X))
+
+    def predict_all(self, X) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """:meth:`predict_parameters` and :meth:`predict_proba` from one neighbour search."""
+        dist, idx = self.kneighbors(X)
+        return (*self._parameters(dist, idx), self._proba(dist, idx))
+
+    def _parameters(self, dist, idx):
+        check_is_fitted(self, "targets_")
+        if self.targets_ is None:
+            raise ValueError("fit() was called without targets")
+        nt = self.targets_.shape[1]
+        val = np.full((len(idx), nt), np.nan)
+        err = np.full((len(idx), nt), np.nan)
+        for r in range(len(idx)):
+            if idx[r, 0] < 0:
+                continue
+            w = self._weights(dist[r:r + 1])[0]
+            for c in range(nt):
+                q16, q50, q84 = _weighted_quantiles(self.targets_[idx[r], c], w,
+                                                    (0.16, 0.5, 0.84))
+                val[r, c], err[r, c] = q50, 0.5 * (q84 - q16)
+        return val, err
+
+
+def _median_spread(X: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """Median over label groups of each column's robust standard deviation (1.4826 MAD)."""
+    order = np.argsort(labels, kind="stable")
+    Xs, ls = X[order], labels[order]
+    starts = np.flatnonzero(np.r_[True, ls[1:] != ls[:-1]])
+    spreads = []
+    for a, b in zip(starts, np.r_[starts[1:], len(ls)]):
+        if b - a >= 3:
+            block = Xs[a:b]
+            spreads.append(1.4826 * np.median(np.abs(block - np.median(block, axis=0)), axis=0))
+    return np.median(spreads, axis=0) if spreads else np.zeros(X.shape[1])
+
+
+def _weighted_quantiles(x: np.ndarray, w: np.ndarray, qs) -> list[float]:
+    good = np.isfinite(x)
+    if not good.any():
+        return [np.nan] * len(qs)
+    x, w = x[good], w[good]
+    order = np.argsort(x)
+    cw = np.cumsum(w[order])
+    cw = (cw - 0.5 * w[order]) / cw[-1]
+    return [float(np.interp(q, cw, x[order])) for q in qs]
+
+
+@lru_cache(maxsize=1)
+def default_model() -> LineRatioNeighbors:
+    """The model fitted on the shipped grid, once per process."""
+    from starlines.grid import load_grid
+
+    X, y, targets, groups = training_set(load_grid())
+    return LineRatioNeighbors().fit(X, y, targets, groups)
