@@ -159,27 +159,28 @@ def _chi2_single(data: _LineData, bases, noise: float) -> np.ndarray:
 
 
 def _chi2_pairs(data: _LineData, bases, noise: float):
-    """chi^2 and summed depths for every pair of profiles sharing a sigma."""
+    """chi^2 and summed depths for every pair of profiles sharing a sigma.
+
+    The free offset is removed by centring data and profiles; the two depths then follow
+    from a 2x2 system solved in closed form for all pairs at once.
+    """
     chi, dep1, dep2 = 0.0, 0.0, 0.0
     for d, g in zip(data.depth, bases):
-        ns = g.shape[0]
-        g = g.reshape(ns, -1, d.size)
-        m = g.shape[1]
-        gram = np.einsum("spk,sqk->spq", g, g)
-        g1, sd = g.sum(axis=2), g @ d
-        a = np.empty((ns, m, m, 3, 3))
-        a[..., 0, 0] = np.diagonal(gram, axis1=1, axis2=2)[:, :, None]
-        a[..., 1, 1] = np.diagonal(gram, axis1=1, axis2=2)[:, None, :]
-        a[..., 0, 1] = a[..., 1, 0] = gram
-        a[..., 0, 2] = a[..., 2, 0] = g1[:, :, None]
-        a[..., 1, 2] = a[..., 2, 1] = g1[:, None, :]
-        a[..., 2, 2] = d.size
-        a[..., [0, 1], [0, 1]] += 1e-9  # identical profiles: keep the system solvable
-        b = np.stack(np.broadcast_arrays(sd[:, :, None], sd[:, None, :],
-                                         np.full((ns, m, m), d.sum())), axis=-1)
-        x = np.linalg.solve(a, b[..., None])[..., 0]
-        chi = chi + d @ d - (x * b).sum(axis=-1)
-        dep1, dep2 = dep1 + x[..., 0], dep2 + x[..., 1]
+        ns, n = g.shape[0], d.size
+        g = g.reshape(ns, -1, n)
+        gc = g - g.mean(axis=2, keepdims=True)
+        dc = d - d.mean()
+        gram = np.einsum("spk,sqk->spq", gc, gc)
+        sd = gc @ dc
+        diag = np.diagonal(gram, axis1=1, axis2=2)
+        gpp, gqq = diag[:, :, None], diag[:, None, :]
+        sp, sq = sd[:, :, None], sd[:, None, :]
+        det = gpp * gqq - gram * gram
+        det = np.where(det > 1e-9 * gpp * gqq, det, np.inf)  # identical profiles
+        x1 = (gqq * sp - gram * sq) / det
+        x2 = (gpp * sq - gram * sp) / det
+        chi = chi + dc @ dc - (x1 * sp + x2 * sq)
+        dep1, dep2 = dep1 + x1, dep2 + x2
     return np.asarray(chi) / noise**2, dep1, dep2
 
 

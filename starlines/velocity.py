@@ -1,0 +1,424 @@
+"""Radial velocities: line centroids, cross-correlation, barycentric frame, SB2 test.
+
+Per-line velocities come from the measured centroids against rest wavelengths *in the
+spectrum's own medium* (air and vacuum differ by ~84 km/s at 4500 A); the line table's rest
+wavelengths are checked against the catalogue in that medium and a mismatch is an error,
+never a guess. Velocities use the optical convention ``v = c (lambda / lambda_rest - 1)``.
+
+The centroid velocity is an inverse-variance mean with iterative robust rejection: a line
+is dropped when it lies more than :data:`CLIP_NSIGMA` times ``sqrt(err^2 + s^2)`` from the
+mean, ``s = 1.4826 MAD`` (common practice). Emission lines and the wind-sensitive lines
+(:data:`WIND_LINES`) are excluded, blended lines (a catalogue neighbour also measured) are
+down-weighted by :data:`BLEND_ERROR_FACTOR`; ``lines_used`` and ``lines_rejected`` record
+the choice. ``rv_err = max(error of the weighted mean, scatter / sqrt(n))``.
+
+The second estimate cross-correlates the normalized spectrum with a template
+(:mod:`starlines.ccf`): the caller's, else a synthetic spectrum at the classified type
+(:mod:`starlines.synth`), else lines at the catalogue wavelengths with the measured depths
+and widths. Both estimates and the SB2 components are then put in the barycentric frame
+(:mod:`starlines.barycentric`).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from starlines.barycentric import C_KMS, apply_correction, frame_correction
+from starlines.errors import VelocityError
+
+__all__ = ["VelocityResult", "measure_velocity", "line_velocities", "combine_velocities",
+           "default_template", "WIND_LINES"]
+
+#: Lines not used for the centroid velocity: formed partly in the stellar wind, or
+#: often filled in by emission in O and Be stars (common practice).
+WIND_LINES = {"HeII4686": "wind line", "HI6563": "wind line", "HI4861": "wind line"}
+#: Error inflation of a line whose catalogue neighbour is also measured.
+BLEND_ERROR_FACTOR = 3.0
+#: Rejection threshold of the robust mean, in combined sigma.
+CLIP_NSIGMA = 3.5
+#: Largest tolerated difference (Angstrom) between the table's rest wavelength and the
+#: catalogue's in the spectrum's medium (air - vacuum is 1.1-1.8 A in the optical).
+REST_TOLERANCE = 0.05
+
+
+@dataclass
+class VelocityResult:
+    """Velocities of one spectrum (km/s, in ``frame``).
+
+    Attributes
+    ----------
+    rv, rv_err : float
+        Robust weighted mean of the line-centroid velocities and its error.
+    n_lines : int
+        Lines in that mean.
+    lines_used : list of str
+        Their ids.
+    rv_ccf, rv_ccf_err : float
+        Cross-correlation velocity and its Zucker (2003) error.
+    frame : str
+        ``"barycentric"``, ``"heliocentric"`` (as delivered) or ``"topocentric"``.
+    barycentric_correction : float
+        Correction added (km/s), NaN when none.
+    frame_reason : str
+        One line on the frame.
+    sb2 : bool
+        Two velocity components found.
+    rv_components : list of float
+        The components (stronger first) when ``sb2``.
+    flags : list of str
+        ``double-lined``, ``velocity-methods-disagree``, ``rv-topocentric``,
+        ``medium-assumed``, ``iers-extrapolated``, ``few-rv-lines``.
+    lines_rejected : dict
+        Line id -> reason it was not used.
+    notes : list of str
+        Details (SB2 test, template used).
+    """
+
+    rv: float = math.nan
+    rv_err: float = math.nan
+    n_lines: int = 0
+    lines_used: list[str] = field(default_factory=list)
+    rv_ccf: float = math.nan
+    rv_ccf_err: float = math.nan
+    frame: str = "topocentric"
+    barycentric_correction: float = math.nan
+    frame_reason: str = ""
+    sb2: bool = False
+    rv_components: list[float] = field(default_factory=list)
+    flags: list[str] = field(default_factory=list)
+    lines_rejected: dict[str, str] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+
+    def as_row(self) -> dict:
+        """Plain values under the result-row names of DEVELOPERS.md."""
+        return {
+            "rv": self.rv, "rv_err": self.rv_err, "rv_n_lines": self.n_lines,
+            "rv_ccf": self.rv_ccf, "rv_ccf_err": self.rv_ccf_err, "rv_frame": self.frame,
+            "barycentric_correction": self.barycentric_correction,
+            "rv2": self.rv_components[1] if self.sb2 else math.nan,
+            "rv_lines_used": ",".join(self.lines_used), "rv_frame_reason": self.frame_reason,
+            "rv_flags": ",".join(self.flags), "rv_notes": "; ".join(self.notes),
+        }
+
+
+def _rest_wavelengths(table, medium: str, path: str) -> np.ndarray:
+    """Rest wavelengths in ``medium``, checked against the catalogue."""
+    from starlines.lines import line
+
+    ids = [str(x) for x in table["line"]]
+    cat = np.array([line(i).wavelength(medium) for i in ids], dtype=float)
+    if "wavelength_rest" in table.colnames:
+        given = np.asarray(getattr(table["wavelength_rest"], "value", table["wavelength_rest"]),
+                           dtype=float)
+        bad = np.abs(given - cat) > REST_TOLERANCE
+        if np.any(bad):
+            raise VelocityError(
+                f"line table rest wavelengths are not {medium} values "
+                f"(e.g. {ids[int(np.argmax(bad))]}): refusing to guess the medium", path=path)
+    return cat
+
+
+def _col(table, name: str, default=np.nan) -> np.ndarray:
+    if name not in table.colnames:
+        return np.full(len(table), default)
+    c = table[name]
+    return np.asarray(getattr(c, "value", c))
+
+
+def line_velocities(table, medium: str, *, path: str = ""):
+    """Per-line velocities and the choice of lines.
+
+    Returns
+    -------
+    (ids, rv, err, reasons)
+        Arrays over the table rows; ``reasons[i]`` is "" for usable lines, else why not.
+    """
+    from starlines.lines import line
+
+    ids = [str(x) for x in table["line"]]
+    rest = _rest_wavelengths(table, medium, path)
+    cen = _col(table, "centroid").astype(float)
+    cerr = _col(table, "centroid_err").astype(float)
+    status = [str(s) for s in _col(table, "status", "measured")]
+    emission = _col(table, "emission", False).astype(bool)
+    rv = C_KMS * (cen / rest - 1.0)
+    err = C_KMS * cerr / rest
+    measured = {i for i, s, e in zip(ids, status, emission) if s == "measured" and not e}
+    reasons = []
+    for k, ident in enumerate(ids):
+        if status[k] != "measured":
+            reasons.append(status[k])
+        elif emission[k]:
+            reasons.append("emission")
+        elif ident in WIND_LINES:
+            reasons.append(WIND_LINES[ident])
+        elif not (np.isfinite(rv[k]) and np.isfinite(err[k]) and err[k] > 0):
+            reasons.append("no centroid error")
+        else:
+            reasons.append("")
+            if any(b in measured for b in line(ident).blends):
+                err[k] *= BLEND_ERROR_FACTOR
+    return ids, rv, err, reasons
+
+
+def combine_velocities(rv: np.ndarray, err: np.ndarray, *, nsigma: float = CLIP_NSIGMA):
+    """Robust inverse-variance mean.
+
+    Returns
+    -------
+    (mean, mean_err, keep)
+        ``mean_err = max(1/sqrt(sum w), std / sqrt(n))``; ``keep`` marks the lines kept.
+    """
+    rv, err = np.asarray(rv, float), np.asarray(err, float)
+    keep = np.ones(rv.size, bool)
+    if rv.size == 0:
+        return math.nan, math.nan, keep
+    for _ in range(10):
+        w = 1.0 / err[keep] ** 2
+        mean = float(np.sum(w * rv[keep]) / np.sum(w))
+        resid = rv - mean
+        s = 1.4826 * float(np.median(np.abs(resid[keep] - np.median(resid[keep]))))
+        new = np.abs(resid) <= nsigma * np.sqrt(err**2 + s**2)
+        if new.sum() < max(2, (keep.sum() + 1) // 2) or np.array_equal(new, keep):
+            break
+        keep = new
+    w = 1.0 / err[keep] ** 2
+    mean = float(np.sum(w * rv[keep]) / np.sum(w))
+    n = int(keep.sum())
+    mean_err = 1.0 / math.sqrt(float(np.sum(w)))
+    if n > 1:
+        mean_err = max(mean_err, float(np.std(rv[keep], ddof=1)) / math.sqrt(n))
+    return mean, mean_err, keep
+
+
+def default_template(spec, table, classification=None, *, vsini: float = math.nan):
+    """Template callable (rest frame, normalized flux) for the cross-correlation.
+
+    A synthetic spectrum at the classified parameters when :mod:`starlines.synth` and a
+    classification are available; otherwise lines at the catalogue wavelengths with the
+    depths and widths measured in ``table`` (Lorentzian Balmer lines, Gaussian others).
+    Returns (callable, description).
+    """
+    res = spec.meta.resolution_fwhm or float(table.meta.get("resolution_fwhm", 0) or 0) or (
+        2.5 * float(np.median(np.diff(spec.wavelength))))
+    vs = vsini if math.isfinite(vsini) else float(table.meta.get("vsini", 0) or 0)
+    vs = vs if math.isfinite(vs) else 0.0
+    teff = getattr(classification, "teff", math.nan)
+    if classification is not None and math.isfinite(teff):
+        try:
+            from starlines.synth import synthetic_spectrum
+        except ImportError:
+            synthetic_spectrum = None
+        if synthetic_spectrum is not None:
+            kw = dict(teff=teff, logg=_finite_or(classification.logg, 4.0),
+                      he=_finite_or(classification.he_abundance, 0.1), vsini=vs, rv=0.0,
+                      resolution_fwhm=res, medium=spec.medium)
+            return (lambda w: synthetic_spectrum(w, **kw),
+                    f"synthetic spectrum Teff {teff:.0f} K")
+    return _table_template(spec, table, res), "lines at catalogue wavelengths, measured depths"
+
+
+def _finite_or(x, default: float) -> float:
+    try:
+        return float(x) if math.isfinite(float(x)) else default
+    except (TypeError, ValueError):
+        return default
+
+
+def _table_template(spec, table, res: float):
+    from starlines.ccf import line_template
+    from starlines.lines import line, lines_in_range
+
+    ids = [str(x) for x in table["line"]] if "line" in table.colnames else []
+    status = [str(s) for s in _col(table, "status", "")]
+    depth, fwhm = _col(table, "depth"), _col(table, "fwhm")
+    ew = _col(table, "ew")
+    cen, dep, fw, shp = [], [], [], []
+    for k, ident in enumerate(ids):
+        d = depth[k] if math.isfinite(depth[k]) else ew[k] / (1.0645 * fwhm[k])
+        if status[k] == "measured" and math.isfinite(d) and d > 0 and fwhm[k] > 0:
+            ln = line(ident)
+            cen.append(ln.wavelength(spec.medium))
+            dep.append(min(float(d), 0.9))
+            fw.append(float(fwhm[k]))
+            shp.append("lorentzian" if ln.kind == "balmer" else "gaussian")
+    if len(cen) < 2:  # nothing measured: generic hot-star depths (common practice, rough)
+        w = spec.wavelength
+        for ln in lines_in_range(w[0], w[-1], medium=spec.medium):
+            cen.append(ln.wavelength(spec.medium))
+            balmer = ln.kind == "balmer"
+            dep.append(0.3 if balmer else 0.08)
+            fw.append(10.0 if balmer else max(res, 2.0))
+            shp.append("lorentzian" if balmer else "gaussian")
+    return lambda w: line_template(w, cen, dep, fw, shapes=shp)
+
+
+def _normalized(spec, continuum):
+    """Normalized flux, usable pixels and noise per pixel of the normalized flux."""
+    from starlines.snr import der_snr_noise
+
+    if continuum is None:
+        from starlines.continuum import fit_continuum
+
+        continuum = fit_continuum(spec)
+    norm = np.asarray(getattr(continuum, "normalized", continuum), dtype=float)
+    good = spec.good & np.isfinite(norm)
+    nerr = getattr(continuum, "normalized_err", None)
+    if nerr is not None and np.any(np.isfinite(np.asarray(nerr)[good])):
+        noise = float(np.nanmedian(np.asarray(nerr, float)[good]))
+    else:
+        noise = der_snr_noise(norm, good)
+    return norm, good, noise
+
+
+def _as_template(template, spec):
+    if callable(template) or isinstance(template, tuple):
+        return template
+    arr = np.asarray(template, dtype=float)
+    if arr.shape != spec.wavelength.shape:
+        raise VelocityError("template array must match the spectrum's wavelength grid or be "
+                            "a (wavelength, flux) tuple or a callable", path=spec.path)
+    return (spec.wavelength, arr)
+
+
+def _ccf_mask(spec, table, good) -> np.ndarray:
+    """Usable pixels for the CCF: drop wind lines and lines measured in emission."""
+    from starlines.lines import line
+
+    w, use = spec.wavelength, good.copy()
+    for ident in WIND_LINES:
+        lam = line(ident).wavelength(spec.medium)
+        use &= np.abs(w - lam) > 25.0
+    em = _col(table, "emission", False).astype(bool)
+    fwhm = _col(table, "fwhm")
+    for ident, e, fw in zip(table["line"], em, fwhm):
+        if e:
+            half = 2.0 * (fw if math.isfinite(fw) else 5.0)
+            use &= np.abs(w - line(str(ident)).wavelength(spec.medium)) > half
+    return use
+
+
+def measure_velocity(spec, lines_table, *, classification=None, template=None,
+                     continuum=None, site: str | None = None,
+                     site_config: str | os.PathLike | None = None,
+                     detect_binary: bool = True) -> VelocityResult:
+    """Radial velocity of one spectrum from its line table and its flux.
+
+    Parameters
+    ----------
+    spec : Spectrum
+        The spectrum (its ``medium`` and ``meta`` are used).
+    lines_table : astropy.table.QTable
+        Output of ``measure_lines`` (columns ``line, wavelength_rest, centroid,
+        centroid_err, status, emission``, and ``depth, fwhm, ew`` for the template).
+    classification : Classification, optional
+        Sets the synthetic template's parameters.
+    template : callable, (wavelength, flux) or array, optional
+        Rest-frame normalized template for the CCF.
+    continuum : ContinuumFit or array, optional
+        Normalized flux; fitted with ``starlines.continuum`` when None.
+    site, site_config : optional
+        Observatory name and user site file for the barycentric correction.
+    detect_binary : bool
+        Run the double-lined test.
+
+    Returns
+    -------
+    VelocityResult
+
+    Raises
+    ------
+    VelocityError
+        If the table's medium differs from the spectrum's, or nothing gives a velocity.
+    """
+    out = VelocityResult()
+    tmedium = lines_table.meta.get("medium") if hasattr(lines_table, "meta") else None
+    if tmedium not in (None, spec.medium):
+        raise VelocityError(f"line table is in {tmedium} but the spectrum in {spec.medium}",
+                            path=spec.path)
+    if spec.medium_assumed:
+        out.flags.append("medium-assumed")
+        out.notes.append(f"rest wavelengths in {spec.medium} as assumed by the reader; "
+                         "the other medium would shift velocities by ~80 km/s")
+    ids, rv, err, reasons = line_velocities(lines_table, spec.medium, path=spec.path)
+    usable = np.array([r == "" for r in reasons], dtype=bool)
+    out.lines_rejected = {i: r for i, r in zip(ids, reasons) if r}
+    if usable.any():
+        mean, merr, keep = combine_velocities(rv[usable], err[usable])
+        used = [i for i, u in zip(ids, usable) if u]
+        out.lines_used = [i for i, k in zip(used, keep) if k]
+        out.lines_rejected.update({i: "discrepant (clipped)" for i, k in zip(used, keep)
+                                   if not k})
+        out.rv, out.rv_err, out.n_lines = mean, merr, len(out.lines_used)
+    if out.n_lines < 3:
+        out.flags.append("few-rv-lines")
+    ccf_v = math.nan
+    try:
+        ccf_v = _cross_correlation(out, spec, lines_table, classification, template,
+                                   continuum, detect_binary)
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        out.notes.append(f"cross-correlation failed: {exc}")
+    if not (math.isfinite(out.rv) or math.isfinite(ccf_v)):
+        raise VelocityError("no usable line centroid and no cross-correlation peak",
+                            path=spec.path)
+    _to_frame(out, spec, site, site_config)
+    _compare_methods(out)
+    return out
+
+
+def _cross_correlation(out, spec, table, classification, template, continuum,
+                       detect_binary) -> float:
+    from starlines.binary import CCF_LINES, detect_sb2
+    from starlines.ccf import cross_correlate
+    from starlines.lines import line
+
+    norm, good, noise = _normalized(spec, continuum)
+    if template is None:
+        tmpl, desc = default_template(spec, table, classification)
+    else:
+        tmpl, desc = _as_template(template, spec), "caller's template"
+    res = cross_correlate(spec.wavelength, norm, tmpl, noise=noise,
+                          good=_ccf_mask(spec, table, good))
+    out.rv_ccf, out.rv_ccf_err = res.rv, res.rv_err
+    out.notes.append(f"CCF template: {desc}; peak {res.height:.3f}, "
+                     f"Tonry-Davis r {res.tonry_davis_r:.1f}")
+    if detect_binary:
+        resol = spec.meta.resolution_fwhm or float(table.meta.get("resolution_fwhm", 0) or 0)
+        resol = resol or 2.5 * float(np.median(np.diff(spec.wavelength)))
+        rest = {k: line(k).wavelength(spec.medium) for k in CCF_LINES}
+        sb2 = detect_sb2(spec.wavelength, norm, good, noise=noise, rest=rest,
+                         resolution_fwhm=resol, v_guess=res.rv)
+        out.notes += sb2.notes
+        if sb2.sb2:
+            out.sb2, out.rv_components = True, list(sb2.velocities)
+            out.flags.append("double-lined")
+    return res.rv
+
+
+def _to_frame(out: VelocityResult, spec, site, site_config) -> None:
+    fc = frame_correction(spec.meta, site=site, site_config=site_config)
+    out.frame, out.barycentric_correction, out.frame_reason = (
+        fc.frame, fc.correction_kms, fc.reason)
+    out.flags += fc.flags
+    corr = fc.correction_kms
+    out.rv = apply_correction(out.rv, corr)
+    out.rv_ccf = apply_correction(out.rv_ccf, corr)
+    out.rv_components = [apply_correction(v, corr) for v in out.rv_components]
+
+
+def _compare_methods(out: VelocityResult) -> None:
+    """Flag centroid and CCF velocities that differ beyond 3 sigma and the tolerance of
+    :mod:`starlines.flags` (so that both stages agree on the flag)."""
+    from starlines.flags import RV_METHOD_TOLERANCE_KMS
+
+    if out.sb2 or not (math.isfinite(out.rv) and math.isfinite(out.rv_ccf)):
+        return
+    e2 = out.rv_ccf_err if math.isfinite(out.rv_ccf_err) else 0.0
+    sigma = math.hypot(out.rv_err if math.isfinite(out.rv_err) else 0.0, e2)
+    diff = abs(out.rv - out.rv_ccf)
+    if diff > 3.0 * sigma and diff > RV_METHOD_TOLERANCE_KMS:
+        out.flags.append("velocity-methods-disagree")
