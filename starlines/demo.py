@@ -90,9 +90,10 @@ class DemoStar:
         Fractional continuum slope across 1000 A (0 = flat).
     companion : dict or None
         Second star of a double-lined binary (``sptype, rv, vsini, light``).
-    emission : list of tuple
-        Emission components ``(line id, peak height, FWHM A, peak separation km/s)``;
-        a separation > 0 gives a double peak.
+    emission : dict
+        Emission components for :func:`starlines.synth.synthetic_spectrum`: line id ->
+        ``{"ew": A (negative), "fwhm_kms": ..., "peak_separation_kms": ...}``; a
+        separation > 0 gives a double peak.
     corrupt : bool
         Write a truncated file.
     ra, dec : float
@@ -110,7 +111,7 @@ class DemoStar:
     halpha: bool = False
     tilt: float = 0.0
     companion: dict | None = None
-    emission: list = field(default_factory=list)
+    emission: dict = field(default_factory=dict)
     corrupt: bool = False
     ra: float = 0.0
     dec: float = 0.0
@@ -155,14 +156,19 @@ def _plant(by_name: dict[str, DemoStar]) -> None:
     """Turn some of the stars into the planted cases of :data:`PLANTED`."""
     s = by_name["H7-03"]
     s.sptype = s.catalogue_type = "O5 If"
-    s.emission = [("HeII4686", 0.35, 6.0, 0.0), ("NIII4634", 0.10, 2.5, 0.0),
-                  ("NIII4641", 0.16, 2.5, 0.0), ("NIII4642", 0.10, 2.5, 0.0)]
+    s.emission = {"HeII4686": {"ew": -1.6, "fwhm_kms": 450.0},
+                  "NIII4634": {"ew": -0.25, "fwhm_kms": 150.0},
+                  "NIII4641": {"ew": -0.45, "fwhm_kms": 150.0},
+                  "NIII4642": {"ew": -0.25, "fwhm_kms": 150.0}}
     s = by_name["H7-11"]
     s.sptype = s.catalogue_type = "B1 V"
     s.catalogue_type = "B1 Ve"
     s.vsini, s.halpha = 250.0, True
-    s.emission = [("HI6563", 1.2, 5.0, 260.0), ("HI4861", 0.45, 4.0, 260.0),
-                  ("HI4340", 0.22, 3.5, 260.0)]
+    s.emission = {
+        "HI6563": {"ew": -14.0, "fwhm_kms": 220.0, "peak_separation_kms": 260.0},
+        "HI4861": {"ew": -5.5, "fwhm_kms": 200.0, "peak_separation_kms": 260.0},
+        "HI4340": {"ew": -1.5, "fwhm_kms": 200.0, "peak_separation_kms": 260.0},
+    }
     s = by_name["H7-14"]
     s.sptype = s.catalogue_type = "O8 V"
     s.vsini = 60.0
@@ -187,30 +193,12 @@ def _plant(by_name: dict[str, DemoStar]) -> None:
     s.catalogue_type = "O7 V"
 
 
-def _emission_profile(wave, medium: str, rv: float, emission) -> np.ndarray:
-    """Gaussian emission components (single or double-peaked) in continuum units."""
-    from starlines.lines import line
-
-    c = 299792.458
-    out = np.zeros_like(wave)
-    for ident, height, fwhm, sep in emission:
-        w0 = line(ident).wavelength(medium) * (1 + rv / c)
-        sigma = fwhm / 2.3548200450309493
-        peaks = (w0,) if sep <= 0 else (w0 * (1 - sep / 2 / c), w0 * (1 + sep / 2 / c))
-        for p in peaks:
-            out += height * np.exp(-0.5 * ((wave - p) / sigma) ** 2)
-    return out
-
-
 def _parameters(sptype: str) -> tuple[float, float]:
     from starlines.sptype import parse_sptype
     from starlines.synth import parameters_for_type
 
     st = parse_sptype(sptype)
-    p = parameters_for_type(st.subtype, st.lumclass or "V")
-    if isinstance(p, dict):
-        return float(p["teff"]), float(p["logg"])
-    return float(p[0]), float(p[1])
+    return parameters_for_type(st.subtype, st.lumclass or "V")
 
 
 def barycentric_correction(star: DemoStar, index: int) -> float:
@@ -245,18 +233,17 @@ def _normalized_flux(star: DemoStar, wave: np.ndarray, fwhm: float,
     """Normalized flux with every velocity moved by ``shift`` (km/s; topocentric frame)."""
     from starlines.synth import synthetic_spectrum
 
-    def one(sptype, rv, vsini, he):
+    def one(sptype, rv, vsini, he, emission=None):
         teff, logg = _parameters(sptype)
         return synthetic_spectrum(wave, teff=teff, logg=logg, he=he, vsini=vsini, rv=rv,
-                                  resolution_fwhm=fwhm, medium="air")
+                                  resolution_fwhm=fwhm, medium="air",
+                                  emission_lines=emission or None)
 
-    flux = one(star.sptype, star.rv + shift, star.vsini, star.he)
+    flux = one(star.sptype, star.rv + shift, star.vsini, star.he, star.emission)
     if star.companion:
         comp = star.companion
         flux = (flux + comp["light"] * one(comp["sptype"], comp["rv"] + shift, comp["vsini"],
                                            0.1)) / (1 + comp["light"])
-    if star.emission:
-        flux = flux + _emission_profile(wave, "air", star.rv + shift, star.emission)
     return np.asarray(flux, dtype=float)
 
 

@@ -44,7 +44,7 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "followup_score", "followup_rank",
     # extensions
     "he_abundance_err", "rules_subtype", "model_subtype", "probability", "followup_reason",
-    "catalogue_type", "catalogue_subtype", "catalogue_rv", "notes", "figure",
+    "catalogue_type", "catalogue_subtype", "catalogue_rv", "class_notes", "notes", "figure",
 )
 
 #: Units of the result columns that have one.

@@ -110,7 +110,7 @@ def _followup_table(followup: Sequence[Mapping]) -> str:
         link = f'<a href="#{_anchor(r)}">{_e(_star_name(r))}</a>' if r.get("figure") else \
             _e(_star_name(r))
         body.append(
-            f"<tr>{_td_num(r['followup_rank'], 'd')}<td>{link}</td><td>{_e(r.get('sptype'))}"
+            f"<tr>{_td_num(r['followup_rank'], '.0f')}<td>{link}</td><td>{_e(r.get('sptype'))}"
             f"</td>{_td_num(r.get('rv'), '+.1f')}{_td_num(r['followup_score'], '.2f')}"
             f"<td>{_e(r.get('followup_reason'))}</td></tr>")
     return ('<table class="sortable" id="followup"><thead><tr><th>rank</th><th>star</th>'
