@@ -32,7 +32,8 @@ from starlines.lines import line, lines_in_range
 from starlines.readers_common import MEDIA, ReadOptions
 from starlines.spectrum import Spectrum
 
-__all__ = ["read_spectra", "read_spectrum", "describe", "merge_orders", "CLASSIFICATION_LINES"]
+__all__ = ["read_spectra", "read_spectrum", "describe", "merge_orders", "covered_lines",
+           "CLASSIFICATION_LINES"]
 
 log = logging.getLogger("starlines.readers")
 
@@ -85,7 +86,8 @@ def _check_options(medium, default_medium, path) -> None:
                           path=path)
 
 
-def _covered(spec: Spectrum) -> list[str]:
+def covered_lines(spec: Spectrum) -> list[str]:
+    """Ids of :data:`CLASSIFICATION_LINES` inside the good-pixel range (by 5 A or more)."""
     good = spec.wavelength[spec.good]
     if good.size == 0:
         return []
@@ -94,7 +96,7 @@ def _covered(spec: Spectrum) -> list[str]:
 
 
 def _check_coverage(spectra: list[Spectrum], path: str) -> None:
-    if any(_covered(s) for s in spectra):
+    if any(covered_lines(s) for s in spectra):
         return
     lo = min(s.wavelength[0] for s in spectra)
     hi = max(s.wavelength[-1] for s in spectra)
@@ -186,7 +188,7 @@ def merge_orders(spectra: list[Spectrum]) -> Spectrum:
         overlap = a.wavelength[-1] - b.wavelength[0]
         span = min(np.ptp(a.wavelength), np.ptp(b.wavelength))
         if overlap > 0.5 * span:
-            best = max(spectra, key=lambda s: (len(_covered(s)), s.good.sum()))
+            best = max(spectra, key=lambda s: (len(covered_lines(s)), s.good.sum()))
             log.info("%s: spectra overlap, not echelle orders; using %s", best.path, best.label)
             return best
     parts = []
