@@ -19,6 +19,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="also write DIR/<star>_epochs.ecsv and DIR/<star>_rv.png")
 
 
+#: Display formats of the printed table (the ECSV keeps full precision).
+_FORMATS = {"mjd_mid": ".5f", "rv": ".2f", "rv_err": ".2f", "rv2": ".2f", "snr": ".0f"}
+
+
 def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9+.-]+", "_", name).strip("_") or "star"
 
@@ -26,10 +30,13 @@ def _safe(name: str) -> str:
 def _print_result(tab, res) -> None:
     ra, dec = tab.meta.get("ra"), tab.meta.get("dec")
     where = f" at RA {ra:.5f}, Dec {dec:+.5f} deg" if ra is not None and dec is not None else ""
-    print(f"{tab.meta['star']} (star #{tab.meta['star_id']}){where}: {len(tab)} spectra, "
-          f"{res.n_used} with a comparable velocity")
+    n = len(tab)
+    print(f"{tab.meta['star']} (star #{tab.meta['star_id']}){where}: {n} "
+          f"{'spectrum' if n == 1 else 'spectra'}, {res.n_used} with a comparable velocity")
     show = tab["night", "mjd_mid", "file", "label", "status", "rv", "rv_err", "rv_frame",
-               "rv2", "sptype", "snr", "flags", "note"]
+               "rv2", "sptype", "snr", "flags", "note"].copy()
+    for col, fmt in _FORMATS.items():
+        show[col].info.format = fmt
     show.pprint(max_lines=-1, max_width=-1)
     print(res.reason)
     for why in res.skipped:
