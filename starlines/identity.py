@@ -174,7 +174,9 @@ def normalise_name(name: str | None) -> str | None:
     numbers are dropped; ``HDE`` reads as ``HD``; the SIMBAD-style prefixes ``V*``, ``*``,
     ``**``, ``NAME``, ``Cl*`` and ``Cl`` are dropped; Greek letters (spelled out, abbreviated
     or as Unicode) become the three-letter abbreviation. Anything else is split into letter,
-    digit and sign tokens joined by single blanks.
+    digit and sign tokens joined by single blanks. Signs are kept, a hyphen included (it may
+    be a declination sign, as in ``2MASS J05353213-0526312``), so ``H7-01`` and ``H7 01``
+    stay apart by name; the sky match joins them when both carry coordinates.
     """
     if name is None:
         return None
