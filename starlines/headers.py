@@ -158,6 +158,20 @@ def medium_from_cards(cards: Cards, ctype: str | None = None) -> tuple[str | Non
     reason : str
         e.g. ``"AIRORVAC='vac'"`` or ``"CTYPE1='AWAV'"``; empty when not stated.
     """
+    from_ctype: tuple[str | None, str] = (None, "")
+    if ctype:
+        head = str(ctype).upper()[:4]
+        if head in ("AWAV", "WAVE"):
+            from_ctype = ("air" if head == "AWAV" else "vacuum"), f"CTYPE={ctype!r}"
+    stated = _medium_keyword(cards)
+    if stated[0] is None:
+        return from_ctype
+    if from_ctype[0] not in (None, stated[0]):
+        log.warning("%s contradicts %s; the explicit keyword wins", stated[1], from_ctype[1])
+    return stated
+
+
+def _medium_keyword(cards: Cards) -> tuple[str | None, str]:
     for key in ("AIRORVAC", "AIRVAC", "WAVEMED", "WAV_MED"):
         v = cards.get(key)
         if isinstance(v, str):
@@ -171,12 +185,6 @@ def medium_from_cards(cards: Cards, ctype: str | None = None) -> tuple[str | Non
         if isinstance(v, bool):
             other = "air" if true_medium == "vacuum" else "vacuum"
             return (true_medium if v else other), f"{key}={'T' if v else 'F'}"
-    if ctype:
-        head = str(ctype).upper()[:4]
-        if head == "AWAV":
-            return "air", f"CTYPE={ctype!r}"
-        if head == "WAVE":
-            return "vacuum", f"CTYPE={ctype!r}"
     return None, ""
 
 

@@ -155,6 +155,8 @@ def read_spectra(
         from starlines.readers_ascii import read_text
 
         spectra = read_text(opts)
+    if not spectra:
+        raise InputFormatError("the file holds no spectrum", path=path)
     usable = []
     for spec in spectra:
         try:

@@ -439,3 +439,12 @@ def test_merge_of_overlapping_fibers_picks_one(tmp_path):
     spectra = read_spectra(tmp_path / "fibers.fits")
     assert [s.label for s in spectra] == ["row 1", "row 2"]
     assert read_spectrum(tmp_path / "fibers.fits").label == "row 1"
+
+
+def test_explicit_medium_keyword_beats_ctype(tmp_path, caplog):
+    path = write_image(tmp_path / "conf.fits", CTYPE1="WAVE", CUNIT1="Angstrom", AIRORVAC="air",
+                       CRVAL1=3900.0, CDELT1=0.5, CRPIX1=1.0)
+    with caplog.at_level("WARNING", logger="starlines.readers"):
+        (spec,) = read_spectra(path)
+    assert (spec.medium, spec.medium_assumed) == ("air", False)
+    assert "contradicts" in caplog.text
