@@ -15,7 +15,8 @@ Two tests, either of which marks a spectrum double-lined (SB2):
 2. **Two CCF peaks**: a cross-correlation with a narrow-line (He I, He II) template shows
    two maxima separated by a dip deeper than :data:`CCF_DIP_NSIGMA` times the CCF noise
    and than :data:`CCF_DIP_FRACTION` of the weaker peak; when He I lines are available the
-   profile fit must prefer two components too (BIC lower), which removes the false peaks
+   profile fit must prefer two components near the same velocities (lower BIC, within
+   max(50 km/s, FWHM / 2)), which removes the false peaks
    that rotational profiles and unmodelled lines leave in the CCF.
 
 The thresholds were set on injected binaries and singles (tests/test_binary.py).
@@ -152,6 +153,7 @@ def _chi2_single(data: _LineData, bases, noise: float) -> np.ndarray:
         n, s1, sd, sdd = d.size, d.sum(), g @ d, d @ d
         gg, g1 = (g * g).sum(axis=1), g.sum(axis=1)
         det = gg * n - g1 * g1
+        det = np.where(det > 1e-12, det, np.inf)  # a profile that is flat on the window
         a = (sd * n - g1 * s1) / det
         c = (s1 - a * g1) / n
         total = total + sdd - a * sd - c * s1
@@ -285,7 +287,11 @@ def detect_sb2(wavelength, norm_flux, good, *, noise: float, rest: dict[str, flo
     chi1, k1, chi2, k2, p, depths = fit_components(data, noise, sigma_inst, v_guess)
     n = sum(v.size for v in data.v)
     out.delta_bic = (chi1 + k1 * math.log(n)) - (chi2 + k2 * math.log(n))
-    if peaks is not None and out.delta_bic > 0:  # CCF peaks confirmed by the profiles
+    tol = max(50.0, 0.5 * fwhm_kms)
+    agree = peaks is not None and (
+        max(abs(p[0] - peaks[0]), abs(p[2] - peaks[1])) < tol
+        or max(abs(p[0] - peaks[1]), abs(p[2] - peaks[0])) < tol)
+    if agree and out.delta_bic > 0:  # CCF peaks confirmed by the He I profiles
         out.sb2, out.method = True, "ccf-peaks"
     elif peaks is not None:
         out.velocities, out.errors = [], []
