@@ -147,7 +147,7 @@ FLAGS: tuple[Flag, ...] = (
          f"continuum S/N < {LOW_SNR:g}: weak-line ratios and types are unreliable", 0.0),
     Flag("not-hot-star", "no helium lines: later than about B3, or not a star",
          f"no He I or He II absorption line detected at >= {MIN_SIGNIFICANCE:g} sigma, "
-         "or the classifier could not place the spectrum", 0.5),
+         "or the classifier could not place the spectrum", 0.0),
     Flag("failed", "the spectrum could not be analysed (cause in the error column)",
          "reading or measuring raised an error", 0.0),
 )

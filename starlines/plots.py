@@ -152,8 +152,9 @@ def star_figure(wavelength, flux, continuum, normalized, lines, title: str):
 
     w = np.asarray(wavelength, float)
     has_ha = w.size > 0 and w[0] < HALPHA_RANGE[0] + 20 and w[-1] > HALPHA_RANGE[1] - 20
-    fig = Figure(figsize=(10.0, 5.2), layout="constrained")
-    grid = fig.add_gridspec(2, 4 if has_ha else 3, height_ratios=(1, 2.3))
+    fig = Figure(figsize=(10.0, 5.2))  # fixed margins: constrained layout doubles the time
+    grid = fig.add_gridspec(2, 4 if has_ha else 3, height_ratios=(1, 2.3), left=0.07,
+                            right=0.985, bottom=0.09, top=0.88, hspace=0.28, wspace=0.3)
     plot_continuum(w, flux, continuum, ax=fig.add_subplot(grid[0, :]))
     main = fig.add_subplot(grid[1, :3])
     plot_normalized(w, normalized, lines=lines, ax=main)
@@ -161,7 +162,7 @@ def star_figure(wavelength, flux, continuum, normalized, lines, title: str):
         ha = fig.add_subplot(grid[1, 3])
         plot_normalized(w, normalized, lines=lines, wrange=HALPHA_RANGE, ax=ha)
         ha.set_ylabel("")
-        ha.set_title("H-alpha", fontsize=8)
+        ha.set_title("H-alpha", fontsize=8, loc="left")
     fig.suptitle(title, fontsize=9)
     return fig
 
