@@ -31,7 +31,7 @@ from starlines.barycentric import C_KMS, apply_correction, frame_correction
 from starlines.errors import VelocityError
 
 __all__ = ["VelocityResult", "measure_velocity", "line_velocities", "combine_velocities",
-           "default_template", "WIND_LINES"]
+           "default_template", "catalogue_template", "WIND_LINES"]
 
 #: Lines not used for the centroid velocity: formed partly in the stellar wind, or
 #: often filled in by emission in O and Be stars (common practice).
@@ -231,7 +231,7 @@ def _finite_or(x, default: float) -> float:
 
 def _table_template(spec, table, res: float):
     from starlines.ccf import line_template
-    from starlines.lines import line, lines_in_range
+    from starlines.lines import line
 
     ids = [str(x) for x in table["line"]] if "line" in table.colnames else []
     status = [str(s) for s in _col(table, "status", "")]
@@ -246,15 +246,28 @@ def _table_template(spec, table, res: float):
             dep.append(min(float(d), 0.9))
             fw.append(float(fwhm[k]))
             shp.append("lorentzian" if ln.kind == "balmer" else "gaussian")
-    if len(cen) < 2:  # nothing measured: generic hot-star depths (common practice, rough)
-        w = spec.wavelength
-        for ln in lines_in_range(w[0], w[-1], medium=spec.medium):
-            cen.append(ln.wavelength(spec.medium))
-            balmer = ln.kind == "balmer"
-            dep.append(0.3 if balmer else 0.08)
-            fw.append(10.0 if balmer else max(res, 2.0))
-            shp.append("lorentzian" if balmer else "gaussian")
+    if len(cen) < 2:  # nothing measured: generic hot-star lines
+        return catalogue_template(spec, res)
     return lambda w: line_template(w, cen, dep, fw, shapes=shp)
+
+
+def catalogue_template(spec, resolution_fwhm: float):
+    """Generic hot-star template: every catalogue line in range, Balmer lines 0.3 deep and
+    10 A wide (Lorentzian), others 0.08 deep (rough, common practice), at the instrumental
+    resolution. The same for any spectrum of a given medium and resolution."""
+    from starlines.ccf import line_template
+    from starlines.lines import lines_in_range
+
+    w = spec.wavelength
+    cen, dep, fw, shp = [], [], [], []
+    for ln in lines_in_range(w[0] - 50, w[-1] + 50, medium=spec.medium):
+        balmer = ln.kind == "balmer"
+        cen.append(ln.wavelength(spec.medium))
+        dep.append(0.3 if balmer else 0.08)
+        fw.append(10.0 if balmer else 1.0)
+        shp.append("lorentzian" if balmer else "gaussian")
+    return lambda x: line_template(x, cen, dep, fw, shapes=shp,
+                                   resolution_fwhm=resolution_fwhm)
 
 
 def _normalized(spec, continuum):
@@ -285,11 +298,27 @@ def _as_template(template, spec):
     return (spec.wavelength, arr)
 
 
+#: Hot-star line region used by the CCF when the spectrum covers enough of it (Angstrom).
+CCF_REGION = (3850.0, 5050.0)
+#: Features not at the star's velocity: interstellar Ca II K, DIBs 4428/5780/5797/6284,
+#: Na D, telluric O2 bands (wavelengths from memory; half-widths generous).
+FOREIGN_BANDS = ((3928.0, 3940.0), (4410.0, 4450.0), (5770.0, 5805.0), (5885.0, 5900.0),
+                 (6270.0, 6300.0), (6860.0, 6960.0), (7160.0, 7340.0), (7590.0, 7700.0))
+
+
 def _ccf_mask(spec, table, good) -> np.ndarray:
-    """Usable pixels for the CCF: drop wind lines and lines measured in emission."""
+    """Usable pixels for the CCF: the hot-star region when covered, without interstellar
+    and telluric features, wind lines and lines measured in emission."""
     from starlines.lines import line
 
     w, use = spec.wavelength, good.copy()
+    region = (w > CCF_REGION[0]) & (w < CCF_REGION[1])
+    if np.count_nonzero(region & use) > 0.3 * np.count_nonzero(
+            (w > max(w[0], CCF_REGION[0])) & (w < min(w[-1], CCF_REGION[1])) | region) and \
+            min(w[-1], CCF_REGION[1]) - max(w[0], CCF_REGION[0]) > 300.0:
+        use &= region
+    for lo, hi in FOREIGN_BANDS:
+        use &= ~((w > lo) & (w < hi))
     for ident in WIND_LINES:
         lam = line(ident).wavelength(spec.medium)
         use &= np.abs(w - lam) > 25.0
