@@ -125,6 +125,11 @@ def training_set(grid, *, copies: int = 8, abs_err=(0.02, 0.10), rel_err=(0.05, 
         Index of the grid model each row was drawn from (for ``fit(groups=...)``).
     """
     rng = np.random.default_rng(seed)
+    sub_all, _ = subtype_for_parameters(np.asarray(grid["teff"], float),
+                                        np.asarray(grid["logg"], float))
+    # models hotter than O3 or cooler than B5 on the scales would pile up on the end labels
+    t_all = np.asarray(grid["teff"], float)
+    grid = grid[(sub_all > 3.0) | (t_all < 46000.0)]
     ids = sorted({i for f in features for i in f.numerator + f.denominator})
     ids = [i for i in ids if f"ew_{i}" in grid.colnames]
     base = {i: np.asarray(grid[f"ew_{i}"], float) for i in ids}

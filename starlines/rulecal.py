@@ -92,7 +92,8 @@ def calibrate_rule(rule: RatioCurveRule, grid, labels=None) -> RatioCurveRule:
     if len(centres) < 3:
         return dataclasses.replace(rule, notes="not calibrated: too few grid subtypes")
     centres, medians = np.array(centres), np.array(medians)
-    iso = IsotonicRegression(increasing="auto").fit(centres, medians, sample_weight=counts)
+    rising = bool(np.polyfit(centres, medians, 1, w=np.sqrt(counts))[0] >= 0)
+    iso = IsotonicRegression(increasing=rising).fit(centres, medians, sample_weight=counts)
     curve = iso.predict(centres)
     if np.ptp(curve) < 0.05:  # no usable trend (dex)
         return dataclasses.replace(rule, notes="not calibrated: no trend on the grid")

@@ -33,6 +33,7 @@ __all__ = [
     "SECONDARY",
     "DETECTION_SIGMA",
     "EW_FLOOR",
+    "EMISSION_PRONE",
 ]
 
 #: A line counts as detected when its EW exceeds this many standard errors (common practice).
@@ -40,6 +41,14 @@ DETECTION_SIGMA = 3.0
 #: Smallest EW (Angstrom) used in a log ratio: weaker lines are treated as at most this
 #: strong (about the detection limit at S/N ~ 100 and R ~ 2000; common practice).
 EW_FLOOR = 0.02
+#: Lines that go into emission in O, Of, Oe and Be stars (common practice): Balmer lines,
+#: He II 4686, N III 4634-42, C III 4647-51, Si IV 4089/4116 (Of), He I 5876/6678 (Be).
+#: A negative EW of any other line is read as a non-detection, not as emission.
+EMISSION_PRONE = frozenset({
+    "HI6563", "HI4861", "HI4340", "HI4102", "HI3970", "HeII4686", "NIII4634", "NIII4641",
+    "NIII4642", "CIII4647", "CIII4650", "CIII4651", "SiIV4089", "SiIV4116", "HeI5876",
+    "HeI6678",
+})
 #: Line statuses whose EW is a usable number (see DEVELOPERS.md, measure contract).
 USABLE_STATUS = ("measured", "not detected", "blended")
 
@@ -66,9 +75,9 @@ class LineValue:
 
     @property
     def in_emission(self) -> bool:
-        """Net emission detected at :data:`DETECTION_SIGMA`."""
+        """Net emission flagged by the measurement and detected at :data:`DETECTION_SIGMA`."""
         err = self.err if math.isfinite(self.err) else 0.0
-        return self.usable and self.ew < -DETECTION_SIGMA * err and (self.emission or err > 0)
+        return self.usable and self.emission and self.ew < -DETECTION_SIGMA * err
 
     @property
     def upper_limit(self) -> float:
@@ -94,12 +103,15 @@ def line_values(table) -> dict[str, LineValue]:
     ew, err = col("ew"), col("ew_err")
     names = table.colnames
     status = table["status"] if "status" in names else ["measured"] * len(table)
-    emission = table["emission"] if "emission" in names else [False] * len(table)
-    return {
-        str(table["line"][i]): LineValue(float(ew[i]), float(err[i]), str(status[i]),
-                                         bool(emission[i]))
-        for i in range(len(table))
-    }
+    emission = table["emission"] if "emission" in names else ew < 0
+    out = {}
+    for i in range(len(table)):
+        ident = str(table["line"][i])
+        em = bool(emission[i])
+        if em and ident not in EMISSION_PRONE:
+            em = False  # a negative EW of a line that is never in emission: not detected
+        out[ident] = LineValue(float(ew[i]), float(err[i]), str(status[i]), em)
+    return out
 
 
 def _sum(values: Mapping[str, LineValue], ids: tuple[str, ...]) -> LineValue | None:

@@ -1,0 +1,283 @@
+"""MK classification of one spectrum: published rules plus the nearest-neighbour model.
+
+:func:`classify` takes a :class:`~starlines.measure.Measurement` or its line table
+(columns ``line, ew, ew_err, status, emission``; EWs in Angstrom, absorption positive) and
+returns a :class:`Classification`:
+
+1. Emission-dominated (Wolf-Rayet-like) spectra get the ``wr-like`` flag and no type.
+2. Rules (:mod:`starlines.rules`): log W' for O3-O9.7, secondary ratios calibrated on the
+   grid for late O and early B, He II presence/absence as limits.
+3. Model (:mod:`starlines.knn`): subtype, Teff, log g, He/H from the nearest grid models.
+4. Combination: inverse-variance mean; if rules and model differ by more than
+   ``starlines.flags.SUBTYPE_TOLERANCE`` the ``type-disagreement`` flag is set and the
+   type gets the MK uncertainty mark ":" instead of a silent choice.
+5. Luminosity class from He II 4686 or Si IV 4089/He I 4144 (:mod:`starlines.lumrules`),
+   else from the model's log g; Of qualifiers from He II 4686 and N III; "e" for Balmer
+   emission; helium-strong/weak from the model's He/H.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from starlines.errors import ClassificationError
+from starlines.flags import HE_NORMAL, HE_TOLERANCE, LOW_SNR, SUBTYPE_TOLERANCE
+from starlines.lumrules import (
+    LUMINOSITY_RULES,
+    balmer_emission,
+    emission_lines,
+    of_qualifier,
+    wr_like,
+)
+from starlines.rules import PRIMARY, LineValue, RuleResult, line_values
+from starlines.sptype import format_sptype
+from starlines.teffscale import lumclass_from_number
+
+__all__ = ["Classification", "classify", "rules_subtype"]
+
+#: Subtype at or after which He II absence is expected: He II 4541 and 4686 both absent
+#: means B0.5 or later (criteria.md section 2: "He II 4686 gone by ~B0.5", [memory]).
+HEII_ABSENT_SUBTYPE = 10.5
+#: He II 4541 detected means no later than this (B0.5; same source).
+HEII_PRESENT_SUBTYPE = 10.5
+
+
+@dataclass
+class Classification:
+    """Result of :func:`classify`. Subtype numbers: O3 = 3.0 ... B0 = 10.0 ... B3 = 13.0."""
+
+    sptype: str = ""
+    subtype: float = math.nan
+    subtype_err: float = math.nan
+    lumclass: str = ""
+    teff: float = math.nan
+    teff_err: float = math.nan
+    logg: float = math.nan
+    logg_err: float = math.nan
+    he_abundance: float = math.nan
+    he_abundance_err: float = math.nan
+    probability: float = math.nan
+    rules_subtype: float = math.nan
+    model_subtype: float = math.nan
+    flags: list[str] = field(default_factory=list)
+    notes: str = ""
+
+    def as_row(self) -> dict:
+        """Plain dict for a result row; flags comma-separated, notes as ``class_notes``."""
+        row = asdict(self)
+        row["flags"] = ",".join(self.flags)
+        row["class_notes"] = row.pop("notes")
+        return row
+
+
+def _table_of(obj):
+    table = getattr(obj, "table", obj)
+    names = getattr(table, "colnames", None)
+    if names is None:
+        raise ClassificationError(f"expected a Measurement or a line table, got {type(obj)}")
+    missing = [c for c in ("line", "ew", "ew_err") if c not in names]
+    if missing:
+        raise ClassificationError(f"line table lacks column(s) {', '.join(missing)}")
+    return table
+
+
+def _combine(results: list[RuleResult]) -> tuple[float, float]:
+    """Inverse-variance mean, error inflated by the scatter between the estimates."""
+    s = np.array([r.subtype for r in results])
+    w = 1.0 / np.array([max(r.subtype_err, 0.1) ** 2 for r in results])
+    mean = float(np.sum(w * s) / np.sum(w))
+    err = 1.0 / math.sqrt(float(np.sum(w)))
+    if len(s) > 1:
+        err = math.hypot(err, float(np.sqrt(np.sum(w * (s - mean) ** 2) / np.sum(w))))
+    return mean, err
+
+
+def rules_subtype(values: dict[str, LineValue], secondary=None) -> tuple[float, float, list]:
+    """Subtype from the rules alone.
+
+    Returns
+    -------
+    subtype, error : float
+        NaN when no rule gives a definite value.
+    used : list of RuleResult
+        Every rule that spoke, limits included (for the notes).
+    """
+    if secondary is None:
+        from starlines.rulecal import calibrated_rules
+
+        secondary = calibrated_rules()
+    primary = PRIMARY.evaluate(values)
+    used = [primary] if primary is not None else []
+    lo, hi = -math.inf, math.inf
+    he2, he2b = values.get("HeII4541"), values.get("HeII4686")
+    if he2 is not None and he2.usable:
+        if he2.detected:
+            hi = HEII_PRESENT_SUBTYPE
+        elif he2b is None or not he2b.usable or not he2b.detected:
+            lo = HEII_ABSENT_SUBTYPE
+    if primary is not None and primary.limit == "lower":
+        lo = max(lo, primary.subtype)
+    if primary is not None and not primary.limit and primary.subtype < 9.0:
+        return primary.subtype, primary.subtype_err, used
+    estimates = [primary] if primary is not None and not primary.limit else []
+    for rule in secondary:
+        res = rule.evaluate(values)
+        if res is None:
+            continue
+        used.append(res)
+        vlo, vhi = rule.valid_range
+        if not res.limit and vlo <= res.subtype <= vhi and lo - 0.5 <= res.subtype <= hi + 0.5:
+            estimates.append(res)
+    if not estimates:
+        return math.nan, math.nan, used
+    sub, err = _combine(estimates)
+    return float(np.clip(sub, lo, hi)), err, used
+
+
+def _model_estimate(values, model):
+    from starlines.knn import TARGETS, feature_vector
+
+    x = feature_vector(values)
+    if not np.isfinite(x).any():
+        return None
+    val, err, proba = model.predict_all(x[None, :])
+    proba = proba[0]
+    out = {t: (float(val[0, i]), float(err[0, i])) for i, t in enumerate(TARGETS)}
+    out["proba"] = (model.classes_.astype(float), proba)
+    return out
+
+
+def _luminosity(values, log_wprime: float, subtype: float, model_lum: float):
+    """(class, uncertain, source) from the rules, else from the model's luminosity."""
+    he_rule, si_rule = LUMINOSITY_RULES
+    res = None
+    he2 = values.get("HeII4686")
+    if subtype < 10.5 and he2 is not None and he2.in_emission:
+        # He II 4686 emission appears when Mv < about -6 (Conti & Leep 1974, abstract)
+        res = he_rule.evaluate(values)
+    elif he_rule.applies(log_wprime):
+        res = he_rule.evaluate(values)
+    elif si_rule.applies(log_wprime, subtype):
+        res = si_rule.evaluate(values)
+    if res is not None:
+        return res.lumclass, res.uncertain, res.rule
+    if math.isfinite(model_lum):
+        return lumclass_from_number(model_lum), False, "model log g"
+    return "", False, ""
+
+
+def classify(measurement_or_line_table, *, model=None, secondary_rules=None) -> Classification:
+    """Classify one spectrum.
+
+    Parameters
+    ----------
+    measurement_or_line_table : Measurement or astropy.table.Table
+        A :class:`~starlines.measure.Measurement` (its ``table`` is used) or a line table
+        with columns ``line, ew, ew_err`` and optionally ``status, emission``; ``meta``
+        may hold ``snr``.
+    model : LineRatioNeighbors, optional
+        Fitted model; default :func:`starlines.knn.default_model` (fitted once, cached).
+    secondary_rules : sequence of RatioCurveRule, optional
+        Calibrated secondary rules; default :func:`starlines.rulecal.calibrated_rules`.
+
+    Returns
+    -------
+    Classification
+
+    Raises
+    ------
+    ClassificationError
+        If the input is not a line table.
+    """
+    table = _table_of(measurement_or_line_table)
+    values = line_values(table)
+    out = Classification()
+    notes: list[str] = []
+    snr = table.meta.get("snr") if hasattr(table, "meta") else None
+    if snr is not None and math.isfinite(float(snr)) and float(snr) < LOW_SNR:
+        out.flags.append("low-snr")
+    if wr_like(values):
+        out.flags.append("wr-like")
+        out.notes = "emission-dominated spectrum (Wolf-Rayet-like): no MK type forced"
+        return out
+    r_sub, r_err, used = rules_subtype(values, secondary_rules)
+    out.rules_subtype = r_sub
+    notes += [f"{r.rule}={r.value:.2f}" + (f"({r.limit} limit)" if r.limit else "")
+              for r in used if math.isfinite(r.value)]
+    if model is None:
+        from starlines.knn import default_model
+
+        model = default_model()
+    est = _model_estimate(values, model)
+    m_sub = m_err = m_lum = math.nan
+    if est is not None:
+        m_sub, m_err = est["subtype"]
+        m_lum = est["lumnumber"][0]
+        out.model_subtype = m_sub
+        out.teff, out.teff_err = est["teff"]
+        out.logg, out.logg_err = est["logg"]
+        out.he_abundance, out.he_abundance_err = est["he"]
+    sub, err, uncertain = _final_subtype(r_sub, r_err, m_sub, m_err, out.flags)
+    if not math.isfinite(sub):
+        out.flags.append("not-hot-star")
+        out.notes = "; ".join(notes + ["key lines missing or undetected: no type"])
+        return out
+    out.subtype, out.subtype_err = sub, err
+    if est is not None:
+        classes, proba = est["proba"]
+        out.probability = float(np.sum(proba[np.abs(classes - sub) <= 0.5]))
+    primary = next((r for r in used if r.rule == PRIMARY.name), None)
+    log_wp = primary.value if primary is not None and not primary.limit else math.nan
+    lum, lum_unc, lum_src = _luminosity(values, log_wp, sub, m_lum)
+    out.lumclass = lum + (":" if lum and lum_unc else "")
+    if lum_src:
+        notes.append(f"luminosity from {lum_src}")
+    qual = _qualifiers(values, sub, out.flags)
+    _helium_flags(out)
+    out.sptype = format_sptype(sub, lum, qual, subtype_uncertain=uncertain,
+                               lumclass_uncertain=lum_unc)
+    out.notes = "; ".join(notes)
+    return out
+
+
+def _final_subtype(r_sub, r_err, m_sub, m_err, flags) -> tuple[float, float, bool]:
+    if math.isfinite(r_sub) and math.isfinite(m_sub):
+        e_r, e_m = max(r_err, 0.1), max(m_err, 0.1)
+        w_r, w_m = 1.0 / e_r**2, 1.0 / e_m**2
+        sub = (w_r * r_sub + w_m * m_sub) / (w_r + w_m)
+        err = 1.0 / math.sqrt(w_r + w_m)
+        if abs(r_sub - m_sub) > SUBTYPE_TOLERANCE:
+            flags.append("type-disagreement")
+            return sub, max(err, 0.5 * abs(r_sub - m_sub)), True
+        return sub, err, False
+    if math.isfinite(r_sub):
+        return r_sub, r_err, False
+    if math.isfinite(m_sub):
+        return m_sub, m_err, m_err > 1.0
+    return math.nan, math.nan, False
+
+
+def _qualifiers(values, subtype: float, flags: list[str]) -> str:
+    em = emission_lines(values)
+    qual = of_qualifier(values) if subtype < 10.0 else ""
+    if subtype < 10.5 and any(i in em for i in ("HeII4686", "NIII4634", "NIII4641",
+                                                 "NIII4642")):
+        flags.append("of-emission")  # Of emission is an O / B0 phenomenon
+    if balmer_emission(values):
+        flags.append("balmer-emission")
+        if "f" not in qual:
+            qual += "e"
+    return qual
+
+
+def _helium_flags(out: Classification) -> None:
+    y, e = out.he_abundance, out.he_abundance_err
+    if not math.isfinite(y):
+        return
+    e = e if math.isfinite(e) else 0.0
+    dy = y - HE_NORMAL
+    if abs(dy) > HE_TOLERANCE and abs(dy) > 3.0 * e:
+        out.flags.append("helium-strong" if dy > 0 else "helium-weak")
