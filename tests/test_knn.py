@@ -62,7 +62,7 @@ def test_teff_scale_round_trip():
 
 
 @pytest.mark.parametrize("subtype, lum", [(6.0, 5.0), (8.0, 3.0), (9.5, 5.0), (11.0, 5.0),
-                                          (12.0, 3.0), (13.0, 1.0)])
+                                          (12.0, 3.0), (12.5, 1.0)])
 def test_recovers_injected_types(fitted, subtype, lum):
     x, teff, logg = _features(subtype, lum)
     val, err = fitted.predict_parameters(x[None, :])
