@@ -40,7 +40,9 @@ def _connect(scheduler: str | None, scheduler_file: str | os.PathLike | None) ->
 
     if scheduler_file is not None and not os.path.isfile(scheduler_file):
         # distributed would wait forever for the file to appear
-        raise ConfigError(f"cannot connect to the Dask scheduler: no scheduler file {scheduler_file}")
+        raise ConfigError(
+            f"cannot connect to the Dask scheduler: no scheduler file {scheduler_file}"
+        )
     try:
         if scheduler_file is not None:
             return Client(scheduler_file=os.fspath(scheduler_file), timeout="30s")
