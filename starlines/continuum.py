@@ -42,10 +42,13 @@ __all__ = ["ContinuumFit", "fit_continuum", "line_windows", "expected_fwhm", "BA
 
 #: Half-width (Angstrom) of the continuum mask of a Balmer line by upper level n at narrow
 #: instrumental width; higher members get 10 A. Common practice for B-star Balmer wings.
-BALMER_HALFWIDTH = {3: 35.0, 4: 35.0, 5: 35.0, 6: 30.0, 7: 20.0, 8: 14.0}
+BALMER_HALFWIDTH = {3: 60.0, 4: 60.0, 5: 60.0, 6: 50.0, 7: 30.0, 8: 18.0, 9: 14.0}
 #: Typical intrinsic (Stark + thermal) FWHM in Angstrom added in quadrature to the measured
 #: line width for each kind of line (common practice, rough).
 INTRINSIC_FWHM = {"hei": 0.8, "heii": 2.0, "metal": 0.3, "balmer": 6.0}
+#: Distance (Angstrom) from the nearest continuum pixel over which the interpolation error
+#: of the continuum grows by one ``scatter``.
+GAP_SCALE = 30.0
 #: Lines tried, in order, as the width reference.
 REFERENCE_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026", "HeI4144", "HeII4541",
                    "SiIII4553", "HeII4686")
@@ -280,7 +283,8 @@ def fit_continuum(
             noise = scatter if np.isfinite(scatter) and scatter > 0 else 0.01
         nerr = np.full(w.size, noise)
         snr, snr_source = 1.0 / noise, "DER_SNR"
-    cerr = np.zeros(w.size) if already else np.sqrt(spline.pointwise_var(M)) * scatter
+    cerr = np.zeros(w.size) if already else np.hypot(
+        np.sqrt(spline.pointwise_var(M)) * scatter, _gap_error(w, kept, scatter))
     return ContinuumFit(
         continuum=cont, normalized=normalized, normalized_err=nerr, continuum_err=cerr,
         kept=kept, scatter=scatter, fraction_kept=float(kept.sum() / max(good.sum(), 1)),
@@ -288,6 +292,21 @@ def fit_continuum(
         instrument_fwhm=fwhm_ins, resolution_source=source, reference_line=ref_id,
         velocity_guess=float(vguess),
     )
+
+
+def _gap_error(w: np.ndarray, kept: np.ndarray, scatter: float) -> np.ndarray:
+    """Interpolation term of the continuum error: grows with the distance to kept pixels.
+
+    ``scatter * d / GAP_SCALE``, capped at 3 ``scatter``, with ``d`` the distance (Angstrom)
+    to the nearest continuum pixel: a smooth curve bridged over a masked gap is uncertain
+    by more than its statistical error (common practice, scale chosen here).
+    """
+    if kept.sum() < 2:
+        return np.full(w.size, 3.0 * scatter)
+    wk = w[kept]
+    i = np.clip(np.searchsorted(wk, w), 1, wk.size - 1)
+    d = np.minimum(np.abs(w - wk[i - 1]), np.abs(wk[i] - w))
+    return scatter * np.minimum(d / GAP_SCALE, 3.0)
 
 
 def _is_normalized(flux, good, kept, cont, sig) -> bool:

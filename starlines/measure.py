@@ -55,6 +55,10 @@ DETECTION_SIGMA = 3.0
 NEAR_MARGIN = 30.0
 #: Floor of the relative continuum-placement prior on the local baseline (common practice).
 CONTINUUM_FLOOR = 1e-3
+#: Residual clipping of lines missing from the catalogue: done when the reduced chi-square
+#: exceeds CLIP_CHI2; pixels beyond CLIP_SIGMA (robust) outside the fitted cores are dropped.
+CLIP_CHI2 = 2.0
+CLIP_SIGMA = 3.0
 #: He I lines tried, in order, for v sin i.
 VSINI_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026")
 
@@ -89,7 +93,7 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
             ia = model.amp_index[k]
             p[ia + 2], prior[ia + 2] = np.log(2.5), 1.0
         else:
-            prior[iv] = max(50.0, 0.5 * C_KMS * pl.fwhm / pl.rest)
+            prior[iv] = max(30.0, 0.25 * C_KMS * pl.fwhm / pl.rest)
             p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.5
     cols = []
     for c in model.components:
@@ -108,15 +112,37 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
     j = 2
     for c, ia in zip(model.components, model.amp_index):
         nj = 2 if c.shape == "wing" else 1
-        p[ia:ia + nj] = sol[j:j + nj]
-        free[ia:ia + nj] = True
-        strong = abs(sol[j:j + nj].sum()) > DETECTION_SIGMA * np.sqrt(var[j:j + nj].sum())
+        area = sol[j:j + nj].sum()
+        p[ia] = area
+        free[ia] = True
+        strong = abs(area) > DETECTION_SIGMA * np.sqrt(var[j:j + nj].sum())
+        if c.shape == "wing":
+            p[ia + 1] = np.clip(sol[j + 1] / area, 0.05, 0.95) if area != 0 else 0.5
         if strong:  # let its shape float; weak lines keep the expected shape
             free[[2 + c.vgroup, 2 + model.nv + c.wgroup]] = True
             if c.shape == "wing":
-                free[ia + 2] = True
+                free[ia + 1:ia + 3] = True
         j += nj
     return p, prior, free
+
+
+def _bounds(model: BlendModel, p0: np.ndarray, prior: np.ndarray, dx: float,
+            halfspan: float):
+    """Hard limits: velocities and log-widths within 2 prior sigma of the start, widths
+    between a third of a pixel and the window half-span, Lorentzian fractions in [0, 1] and
+    half-widths below a quarter of the half-span (broader wings trade against the
+    baseline)."""
+    lo, hi = np.full(model.npar, -np.inf), np.full(model.npar, np.inf)
+    shape = slice(2, 2 + model.nv + model.nw)
+    lo[shape], hi[shape] = p0[shape] - 2.0 * prior[shape], p0[shape] + 2.0 * prior[shape]
+    s = slice(2 + model.nv, 2 + model.nv + model.nw)
+    lo[s] = np.maximum(lo[s], np.log(dx / 3.0))
+    hi[s] = np.minimum(hi[s], np.log(halfspan))
+    for c, ia in zip(model.components, model.amp_index):
+        if c.shape == "wing":
+            lo[ia + 1], hi[ia + 1] = 0.0, 1.0
+            lo[ia + 2], hi[ia + 2] = np.log(dx / 3.0), np.log(halfspan / 4.0)
+    return lo, hi
 
 
 def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
@@ -132,7 +158,30 @@ def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
         return None, x
     p0, prior, free = _initial(model, g.members, x, yy, ee, fwhm, v0,
                                float(np.mean(cerr[i0:i1])))
-    return fit_blend(model, x, yy, ee, p0, prior, free=free, floor_chi2=floor_chi2), x
+    bounds = _bounds(model, p0, prior, float(np.median(np.diff(x))), model.halfspan)
+    fit = fit_blend(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
+                    floor_chi2=floor_chi2)
+    if fit.chi2_red > CLIP_CHI2:
+        keep = _unmodelled(fit, x, yy, ee, g.members)
+        if not keep.all() and keep.sum() >= model.npar + 3:
+            x, yy, ee = x[keep], yy[keep], ee[keep]
+            fit = fit_blend(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
+                            floor_chi2=floor_chi2)
+    return fit, x
+
+
+def _unmodelled(fit: BlendFit, x, y, e, members) -> np.ndarray:
+    """Pixels to keep: drop outliers (lines not in the catalogue) outside fitted cores."""
+    r = (y - fit.model.evaluate(fit.p, x)) / e
+    scale = 1.4826 * np.median(np.abs(r - np.median(r)))
+    core = np.zeros(x.size, dtype=bool)
+    for k, pl in enumerate(members):
+        c, _ = fit.centre(k)
+        core |= np.abs(x - c) < pl.fwhm
+    # grow each outlier by one pixel on both sides (line wings)
+    bad = (np.abs(r) > CLIP_SIGMA * max(scale, 1.0)) & ~core
+    bad = bad | np.roll(bad, 1) | np.roll(bad, -1)
+    return ~(bad & ~core)
 
 
 def _component_row(fit: BlendFit, k: int) -> dict:
@@ -140,8 +189,8 @@ def _component_row(fit: BlendFit, k: int) -> dict:
     cen, cen_err = fit.centre(k)
     s, gam = fit.widths(k)
     ia = fit.model.amp_index[k]
-    ag = fit.p[ia]
-    al = fit.p[ia + 1] if gam > 0 else 0.0
+    frac = fit.p[ia + 1] if gam > 0 else 0.0
+    ag, al = ew * (1.0 - frac), ew * frac
     depth = ag / (s * np.sqrt(2.0 * np.pi)) + (al / (np.pi * gam) if gam > 0 else 0.0)
     sig = abs(ew) / ew_err if ew_err > 0 else 0.0
     rest = fit.model.components[k].rest

@@ -8,9 +8,11 @@ Two component shapes are used:
 ``"gauss"``
     A Gaussian, for He and metal lines broadened by the instrument and rotation.
 ``"wing"``
-    A Gaussian core plus a Lorentzian wing sharing one centre, with independent areas:
-    a fast analytic stand-in for a Voigt profile that also follows Stark-broadened
-    Balmer wings (the Lorentzian carries the far wing, the Gaussian the core).
+    A Gaussian core plus a Lorentzian wing sharing one centre: total area ``A``, a
+    fraction ``f`` (bounded to [0, 1]) of it in the Lorentzian. A fast analytic stand-in
+    for a Voigt profile that also follows Stark-broadened Balmer wings (the Lorentzian
+    carries the far wing, the Gaussian the core); the bounded fraction keeps core and wing
+    from cancelling each other.
 
 A :class:`BlendModel` adds any number of components on a linear local baseline. Lines
 close to each other share one Doppler velocity and one Gaussian width (their parameters are
@@ -99,7 +101,7 @@ class BlendModel:
 
     Parameter vector: ``b0, b1``, one velocity (km/s) per velocity group, one
     ``ln(sigma)`` per width group, then per component its area ``A`` (and for ``"wing"``
-    shapes the Lorentzian area and ``ln(gamma)``).
+    shapes the Lorentzian fraction ``f`` and ``ln(gamma)``).
     """
 
     components: list[Component]
@@ -134,20 +136,25 @@ class BlendModel:
             s = np.exp(p[iw])
             u = (x - mu) / s
             g = np.exp(-0.5 * u * u) / (s * _SQRT2PI)
-            a = p[ia]
+            area = p[ia]
+            if c.shape == "wing":
+                frac, gam = p[ia + 1], np.exp(p[ia + 2])
+                a, al = area * (1.0 - frac), area * frac
+            else:
+                a = area
             m -= a * g
             if jac:
                 J[:, ia] = -g
                 J[:, iv] -= a * g * u / s * dmu_dv
                 J[:, iw] -= a * g * (u * u - 1.0)
             if c.shape == "wing":
-                al, gam = p[ia + 1], np.exp(p[ia + 2])
                 d = x - mu
                 den = d * d + gam * gam
                 lor = gam / np.pi / den
                 m -= al * lor
                 if jac:
-                    J[:, ia + 1] = -lor
+                    J[:, ia] = -((1.0 - frac) * g + frac * lor)
+                    J[:, ia + 1] = -area * (lor - g)
                     J[:, iv] -= al * lor * 2.0 * d / den * dmu_dv
                     J[:, ia + 2] = -al * lor * (1.0 - 2.0 * gam * gam / den)
         return (m, J) if jac else m
@@ -156,10 +163,11 @@ class BlendModel:
         """Absorbed flux (area-weighted profile) of component ``k`` alone."""
         c, ia = self.components[k], self.amp_index[k]
         mu = c.rest * (1.0 + p[2 + c.vgroup] / C_KMS)
-        out = p[ia] * gaussian(x, mu, np.exp(p[2 + self.nv + c.wgroup]))
-        if c.shape == "wing":
-            out = out + p[ia + 1] * lorentzian(x, mu, np.exp(p[ia + 2]))
-        return out
+        g = gaussian(x, mu, np.exp(p[2 + self.nv + c.wgroup]))
+        if c.shape != "wing":
+            return p[ia] * g
+        frac = p[ia + 1]
+        return p[ia] * ((1.0 - frac) * g + frac * lorentzian(x, mu, np.exp(p[ia + 2])))
 
 
 @dataclass
@@ -192,13 +200,7 @@ class BlendFit:
     def ew(self, k: int) -> tuple[float, float]:
         """Equivalent width of component ``k`` and its 1-sigma error (Angstrom)."""
         ia = self.model.amp_index[k]
-        if self.model.components[k].shape == "wing":
-            sel = [ia, ia + 1]
-            val = self.p[ia] + self.p[ia + 1]
-            var = self.cov[np.ix_(sel, sel)].sum()
-        else:
-            val, var = self.p[ia], self.cov[ia, ia]
-        return float(val), float(np.sqrt(max(var, 0.0)))
+        return float(self.p[ia]), float(np.sqrt(max(self.cov[ia, ia], 0.0)))
 
     def centre(self, k: int) -> tuple[float, float]:
         """Fitted centre of component ``k`` and its error (Angstrom)."""
@@ -238,10 +240,12 @@ def profile_fwhm(area_g: float, sigma: float, area_l: float, gamma: float) -> fl
     return float(2.0 * (x0 + (half - y0) * (x1 - x0) / (y1 - y0)))
 
 
-def _levenberg_marquardt(fun_jac, p0, free, linear=False, max_iter=60, tol=1e-7):
-    """Minimise |r(p)|^2 over ``p[free]``; ``fun_jac(p)`` returns (r, J).
+def _levenberg_marquardt(fun_jac, p0, free, lower, upper, linear=False, max_iter=60,
+                         tol=1e-7):
+    """Minimise |r(p)|^2 over ``p[free]`` within [lower, upper]; ``fun_jac(p)`` gives (r, J).
 
-    With ``linear`` (r linear in the free parameters) one Gauss-Newton step is exact.
+    Steps are projected onto the bounds. With ``linear`` (r linear in the free parameters)
+    one Gauss-Newton step is exact.
     """
     p = p0.copy()
     r, J = fun_jac(p)
@@ -271,6 +275,7 @@ def _levenberg_marquardt(fun_jac, p0, free, linear=False, max_iter=60, tol=1e-7)
                 continue
             pn = p.copy()
             pn[free] += step
+            np.clip(pn, lower, upper, out=pn)
             rn, Jn = fun_jac(pn)
             cn = float(rn @ rn)
             if np.isfinite(cn) and cn <= cost:
@@ -296,6 +301,7 @@ def fit_blend(
     prior_sigma: np.ndarray,
     *,
     free: np.ndarray | None = None,
+    bounds: tuple[np.ndarray, np.ndarray] | None = None,
     floor_chi2: bool = True,
 ) -> BlendFit:
     """Least-squares fit of ``model`` to normalized flux with Gaussian priors.
@@ -312,6 +318,8 @@ def fit_blend(
         Prior 1-sigma for each parameter; ``inf`` means no prior (used for the areas).
     free : numpy.ndarray of bool, optional
         Parameters to fit; the others stay at ``p0`` with zero variance. Default all.
+    bounds : (numpy.ndarray, numpy.ndarray), optional
+        Hard lower and upper limits per parameter (default none).
     floor_chi2 : bool
         If True the covariance is scaled by ``max(1, chi2_red)`` (errors never smaller than
         the stated noise); if False by ``chi2_red`` itself (noise estimated from the data).
@@ -339,10 +347,11 @@ def fit_blend(
     nonlinear = np.ones(p0.size, dtype=bool)
     nonlinear[:2] = False
     nonlinear[[i for i, c in zip(model.amp_index, model.components)]] = False
-    nonlinear[[i + 1 for i, c in zip(model.amp_index, model.components) if c.shape == "wing"]] \
-        = False
     linear = not np.any(free & nonlinear)
-    p, r, J = _levenberg_marquardt(fun_jac, p0, np.flatnonzero(free), linear=linear)
+    lower, upper = (np.full(p0.size, -np.inf), np.full(p0.size, np.inf)) if bounds is None \
+        else bounds
+    p, r, J = _levenberg_marquardt(fun_jac, p0, np.flatnonzero(free), lower, upper,
+                                   linear=linear)
     ok = bool(np.all(np.isfinite(p)))
     nfree = int(free.sum())
     dof = max(n - (nfree - pidx.size), 1)
