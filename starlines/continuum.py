@@ -116,8 +116,8 @@ def expected_fwhm(ln: Line, fwhm: float) -> float:
 def _halfwidth(ln: Line, fwhm: float) -> float:
     if ln.kind == "balmer":
         base = BALMER_HALFWIDTH.get(ln.upper, 10.0)
-        return float(np.hypot(base, 2.5 * fwhm))
-    return 2.5 * expected_fwhm(ln, fwhm)
+        return float(np.hypot(base, 1.5 * fwhm))
+    return 1.75 * expected_fwhm(ln, fwhm)
 
 
 def line_windows(lines: list[Line], medium: str, fwhm: float) -> list[tuple[Line, float, float]]:

@@ -78,7 +78,9 @@ def test_quality_figures_and_snr():
     assert 0.3 < cf.fraction_kept < 0.95
     assert not cf.already_normalized
     assert cf.reference_line == "HeI4471"
-    assert np.all(cf.continuum_err < 0.01)
+    # statistical error on the continuum pixels, growing (at most 3 scatter) across gaps
+    assert np.median(cf.continuum_err[cf.kept]) < 0.2 * cf.scatter
+    assert np.all(cf.continuum_err <= 3.01 * cf.scatter)
     # the continuum itself within 1 % of the injected one away from the blue end
     inj = hot_continuum(W)
     sel = W > 3950
