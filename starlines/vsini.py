@@ -28,6 +28,7 @@ modelled and bias v sin i upward for slow rotators at high resolution.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -67,7 +68,8 @@ def rotation_kernel(dl: np.ndarray, dl_max: float, epsilon: float = EPSILON) -> 
     return g / (np.pi * dl_max * (1.0 - epsilon / 3.0))
 
 
-def first_zero_constant(epsilon: float = EPSILON, n: int = 20001) -> float:
+@lru_cache(maxsize=16)
+def first_zero_constant(epsilon: float = EPSILON, n: int = 4001) -> float:
     """sigma_1 * dl_max of the first zero of the Fourier transform of G, computed numerically.
 
     For ``epsilon = 0.6`` this is 0.660 (Gray quotes 0.660); then ``v sin i = q / sigma_1``
@@ -75,7 +77,7 @@ def first_zero_constant(epsilon: float = EPSILON, n: int = 20001) -> float:
     """
     x = np.linspace(-1.0, 1.0, n)
     g = rotation_kernel(x, 1.0, epsilon)
-    s = np.linspace(0.3, 1.0, 1401)
+    s = np.linspace(0.3, 1.0, 351)
     ft = np.trapezoid(g[None, :] * np.cos(2.0 * np.pi * s[:, None] * x[None, :]), x, axis=1)
     i = int(np.flatnonzero(np.sign(ft[1:]) != np.sign(ft[:-1]))[0])
     return float(s[i] - ft[i] * (s[i + 1] - s[i]) / (ft[i + 1] - ft[i]))
@@ -183,16 +185,25 @@ def vsini_kernel_fit(
             vbest = float(vgrid[k] + 0.5 * step * (c0 - c2) / den)
     chi2_red = max(float(chi2[k]) / max(x.size - 3, 1), 1.0)
     level = chi2[k] + chi2_red
-    above = np.flatnonzero(chi2 > level)
-    lo_i, hi_i = above[above < k], above[above > k]
-    lo = vgrid[lo_i[-1]] if lo_i.size else 0.0
-    hi = vgrid[hi_i[0]] if hi_i.size else vmax
-    err_v = max(0.5 * (hi - lo), step / 2.0)
+    lo, hi = _crossing(vgrid, chi2, level, k, -1), _crossing(vgrid, chi2, level, k, +1)
+    err_v = max(0.5 * (hi - lo), 0.5)
     floor = resolution_floor(rest, instrument_fwhm)
     if vbest < floor:
         return VsiniResult(max(floor, vbest + 2 * err_v), float("nan"), True, floor, line_id,
                            "kernel fit")
     return VsiniResult(vbest, float(err_v), False, floor, line_id, "kernel fit")
+
+
+def _crossing(v: np.ndarray, chi2: np.ndarray, level: float, k: int, direction: int) -> float:
+    """Where chi2 first rises through ``level`` going from index ``k`` in ``direction``
+    (linear interpolation; the grid end if it never does)."""
+    i = k
+    while 0 <= i + direction < v.size:
+        j = i + direction
+        if chi2[j] > level:
+            return float(v[i] + (level - chi2[i]) * (v[j] - v[i]) / (chi2[j] - chi2[i]))
+        i = j
+    return float(v[i])
 
 
 def vsini_fourier(
