@@ -246,8 +246,9 @@ def _resolution(cf: ContinuumFit, results, planned) -> tuple[float, str]:
               if p.line.kind in ("metal", "hei") and p.line.id in results
               and results[p.line.id]["status"] == "measured"
               and results[p.line.id]["significance"] > 10 and not results[p.line.id]["emission"]]
-    if narrow:
-        return float(max(min(narrow), cf.instrument_fwhm)), "estimated (narrowest line)"
+    if narrow:  # lower quartile: an upper bound on the instrument, robust to noise
+        return float(max(np.percentile(narrow, 25), cf.instrument_fwhm)), \
+            "estimated (narrowest lines)"
     return cf.instrument_fwhm, cf.resolution_source
 
 

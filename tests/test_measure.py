@@ -299,3 +299,44 @@ def test_real_miles_ews_in_published_ranges(number, sptype, hei, hgamma):
     assert hgamma[0] < r2["ew"].value < hgamma[1], sptype
     # interstellar-free stellar lines of a single star: velocities agree within 30 km/s
     assert abs(r1["rv"].value - r2["rv"].value) < 30.0
+
+
+# ---- command line ----------------------------------------------------------------------
+
+def _write_fits(path, w, flux):
+    from astropy.io import fits
+
+    h = fits.Header()
+    h["CRVAL1"], h["CDELT1"], h["CRPIX1"], h["CUNIT1"] = float(w[0]), 0.5, 1.0, "Angstrom"
+    h["OBJECT"] = "INVENTED-1"
+    fits.PrimaryHDU(flux, header=h).writeto(path)
+
+
+def test_cli_measure_prints_and_writes(tmp_path, capsys):
+    from astropy.table import QTable
+
+    from starlines.cli import main
+
+    norm, ews, _ = b_star_lines(W)
+    spec = make_spectrum(W, norm, hot_continuum(W), snr=200.0)
+    path = tmp_path / "star.fits"
+    _write_fits(path, W, spec.flux)
+    assert main(["measure", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "HeI4471" in out and "measured" in out and "S/N" in out
+    lines_path = tmp_path / "lines.ecsv"
+    assert main(["measure", str(path), "--out", str(lines_path), "--medium", "air"]) == 0
+    tab = QTable.read(lines_path)
+    r = row(tab, "HeI4471")
+    assert r["ew"].to_value(u.AA) == pytest.approx(ews["HeI4471"], rel=0.05)
+    assert tab.meta["medium"] == "air"
+
+
+def test_cli_measure_bad_file(tmp_path, capsys):
+    from starlines.cli import main
+
+    bad = tmp_path / "junk.fits"
+    bad.write_bytes(b"not a spectrum at all")
+    assert main(["measure", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert "junk.fits" in err and "Traceback" not in err
