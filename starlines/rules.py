@@ -280,7 +280,9 @@ SECONDARY: tuple[RatioCurveRule, ...] = (
     RatioCurveRule("SiIV4089/SiIII4553", ("SiIV4089",), ("SiIII4553",), (9.5, 11.5),
                    f"rises to later types B0-B1: {_WALBORN}; curve {_GRID}"),
     RatioCurveRule("SiII4128+4131/SiIII4553", ("SiII4128", "SiII4131"), ("SiIII4553",),
-                   (11.0, 13.5), f"B1-B3 Si ionisation balance; curve {_GRID}"),
+                   (11.0, 13.5),
+                   "B2.5 where equal: Walborn & Fitzpatrick (1990) atlas sequence [memory, "
+                   f"not checked]; slope {_GRID}", anchor=12.5),
     RatioCurveRule("MgII4481/HeI4471", ("MgII4481",), ("HeI4471",), (11.0, 14.0),
                    f"B1-B3, Mg II strengthens to later types; curve {_GRID}"),
     RatioCurveRule("CII4267/HeI4471", ("CII4267",), ("HeI4471",), (10.5, 13.5),
