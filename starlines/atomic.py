@@ -183,7 +183,7 @@ _HEI = {"2s3S": (3.0, 4.767), "2s1S": (1.0, 3.971), "2p3P": (9.0, 3.623), "2p1P"
 #: (lower level, log gf [NIST, recalled], Stark HWHM at 1e16 [from memory]) of He I lines.
 _HEI_LINES = {
     "HeI4009": ("2p1P", -1.45, 1.0),
-    "HeI4026": ("2p3P", -0.37, 0.9),
+    "HeI4026": ("2p3P", -0.37, 2.0),
     "HeI4121": ("2p3P", -1.74, 0.8),
     "HeI4144": ("2p1P", -1.20, 1.6),
     "HeI4388": ("2p1P", -0.88, 1.0),

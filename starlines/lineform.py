@@ -26,11 +26,27 @@ from starlines.atmosphere import C_CGS, H_PLANCK, K_B, K_EV, SAHA_C, Atmosphere
 from starlines.atomic import ABUNDANCE, ELEMENT_MASS, LineData, partition_function
 from starlines.broadening import normal_field, stark_constant, stark_doppler_profile, voigt
 
-__all__ = ["MICROTURBULENCE", "half_profile_grid", "residual_profile", "emergent_flux"]
+__all__ = [
+    "MICROTURBULENCE",
+    "microturbulence",
+    "half_profile_grid",
+    "residual_profile",
+    "emergent_flux",
+]
 
-#: Microturbulence (km/s) for all models: 10 km/s, a typical value adopted for O and early-B
-#: stars (common practice).
+#: Microturbulence (km/s) of dwarfs and giants (log g >= 3.75): 10 km/s, a typical value
+#: adopted for O and early-B stars (common practice).
 MICROTURBULENCE = 10.0
+
+#: Microturbulence (km/s) reached at log g <= 2.75: supergiants need ~15-20 km/s in
+#: analyses of B supergiants (from memory); linear in log g in between.
+MICROTURBULENCE_SUPERGIANT = 20.0
+
+
+def microturbulence(logg: float) -> float:
+    """Microturbulent velocity (km/s) adopted for a model of gravity ``logg``."""
+    w = min(max((3.75 - logg) / 1.0, 0.0), 1.0)
+    return MICROTURBULENCE + w * (MICROTURBULENCE_SUPERGIANT - MICROTURBULENCE)
 
 _PI_RE = 8.8540e-13  # pi e^2 / (m_e c^2) in cm (classical electron radius times pi)
 _AMU = 1.66053907e-24
@@ -121,7 +137,8 @@ def _profile(data: LineData, wavelength: float, dl: np.ndarray, atm: Atmosphere)
     """Absorption profile phi (Angstrom^-1), shape (n_dl, n_depth)."""
     t = atm.temperature
     mass = ELEMENT_MASS[data.element] * _AMU
-    v2 = 2.0 * K_B * t / mass + (MICROTURBULENCE * 1e5) ** 2  # (cm/s)^2, 1/e width squared
+    # squared 1/e Doppler velocity (cm/s)^2: thermal plus microturbulent
+    v2 = 2.0 * K_B * t / mass + (microturbulence(atm.logg) * 1e5) ** 2
     sigma = wavelength * np.sqrt(v2 / 2.0) / C_CGS
     x = dl[:, None]
     if data.profile == "hydrogenic":
