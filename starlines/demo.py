@@ -134,7 +134,7 @@ def demo_stars(seed: int = SEED) -> list[DemoStar]:
         stars.append(DemoStar(
             name=name, sptype=sptype, catalogue_type=sptype,
             rv=CLUSTER["rv"] + rng.normal(0.0, 3.0), expected_rv=CLUSTER["rv"],
-            vsini=float(rng.uniform(40, 160)), snr=float(rng.uniform(80, 300)),
+            vsini=float(rng.uniform(30, 120)), snr=float(rng.uniform(80, 300)),
             halpha=i % 6 == 0, tilt=float(rng.choice([0.0, 0.0, 0.25, -0.3])),
             ra=CLUSTER["ra"] + rng.normal(0, 0.05), dec=CLUSTER["dec"] + rng.normal(0, 0.05),
         ))
@@ -142,7 +142,7 @@ def demo_stars(seed: int = SEED) -> list[DemoStar]:
         rv = CLUSTER["rv"] + rng.uniform(-12.0, 12.0)
         stars.append(DemoStar(
             name=f"FLD-{201 + j}", sptype=sptype, catalogue_type=sptype, rv=rv,
-            expected_rv=round(rv + rng.normal(0, 2.0), 1), vsini=float(rng.uniform(40, 150)),
+            expected_rv=round(rv + rng.normal(0, 2.0), 1), vsini=float(rng.uniform(30, 120)),
             snr=float(rng.uniform(80, 300)), halpha=j % 3 == 0,
             tilt=float(rng.choice([0.0, 0.3])),
             ra=CLUSTER["ra"] + rng.uniform(-1.5, 1.5), dec=CLUSTER["dec"] + rng.uniform(-1, 1),
@@ -183,7 +183,7 @@ def _plant(by_name: dict[str, DemoStar]) -> None:
     s.rv = CLUSTER["rv"] + 85.0
     s = by_name["FLD-205"]
     s.sptype = s.catalogue_type = "B2 V"
-    s.he = 0.30
+    s.he, s.snr, s.vsini = 0.30, 250.0, 60.0
     s = by_name["H7-23"]
     s.sptype = s.catalogue_type = "O9 V"
     s.snr = 22.0
