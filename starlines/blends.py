@@ -132,8 +132,6 @@ def _groups(fit: list[PlannedLine]) -> list[list[PlannedLine]]:
             for q in g:
                 sep = abs(q.obs - pl.obs)
                 reach = max(q.halfwidth, pl.halfwidth) + 2.0 * min(q.fwhm, pl.fwhm)
-                if q.line.kind == "balmer" or pl.line.kind == "balmer":
-                    reach = max(q.halfwidth, pl.halfwidth)
                 if sep < reach:
                     joined = g
                     break

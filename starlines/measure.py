@@ -38,6 +38,7 @@ from starlines.profiles import (
     Component,
     fit_blend,
     gaussian,
+    lorentz_fraction,
     lorentzian,
     profile_fwhm,
 )
@@ -57,8 +58,8 @@ NEAR_MARGIN = 30.0
 CONTINUUM_FLOOR = 1e-3
 #: Residual clipping of lines missing from the catalogue: done when the reduced chi-square
 #: exceeds CLIP_CHI2; pixels beyond CLIP_SIGMA (robust) outside the fitted cores are dropped.
-CLIP_CHI2 = 2.0
-CLIP_SIGMA = 3.0
+CLIP_CHI2 = 3.0
+CLIP_SIGMA = 4.0
 #: He I lines tried, in order, for v sin i.
 VSINI_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026")
 
@@ -117,7 +118,8 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
         free[ia] = True
         strong = abs(area) > DETECTION_SIGMA * np.sqrt(var[j:j + nj].sum())
         if c.shape == "wing":
-            p[ia + 1] = np.clip(sol[j + 1] / area, 0.05, 0.95) if area != 0 else 0.5
+            f0 = np.clip(sol[j + 1] / area, 0.2, 0.8) if area != 0 else 0.5
+            p[ia + 1], prior[ia + 1] = np.log(f0 / (1.0 - f0)), 3.0
         if strong:  # let its shape float; weak lines keep the expected shape
             free[[2 + c.vgroup, 2 + model.nv + c.wgroup]] = True
             if c.shape == "wing":
@@ -129,9 +131,8 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
 def _bounds(model: BlendModel, p0: np.ndarray, prior: np.ndarray, dx: float,
             halfspan: float):
     """Hard limits: velocities and log-widths within 2 prior sigma of the start, widths
-    between a third of a pixel and the window half-span, Lorentzian fractions in [0, 1] and
-    half-widths below a quarter of the half-span (broader wings trade against the
-    baseline)."""
+    between a third of a pixel and the window half-span, Lorentzian half-widths below a
+    quarter of the half-span (broader wings trade against the baseline)."""
     lo, hi = np.full(model.npar, -np.inf), np.full(model.npar, np.inf)
     shape = slice(2, 2 + model.nv + model.nw)
     lo[shape], hi[shape] = p0[shape] - 2.0 * prior[shape], p0[shape] + 2.0 * prior[shape]
@@ -140,7 +141,6 @@ def _bounds(model: BlendModel, p0: np.ndarray, prior: np.ndarray, dx: float,
     hi[s] = np.minimum(hi[s], np.log(halfspan))
     for c, ia in zip(model.components, model.amp_index):
         if c.shape == "wing":
-            lo[ia + 1], hi[ia + 1] = 0.0, 1.0
             lo[ia + 2], hi[ia + 2] = np.log(dx / 3.0), np.log(halfspan / 4.0)
     return lo, hi
 
@@ -189,7 +189,7 @@ def _component_row(fit: BlendFit, k: int) -> dict:
     cen, cen_err = fit.centre(k)
     s, gam = fit.widths(k)
     ia = fit.model.amp_index[k]
-    frac = fit.p[ia + 1] if gam > 0 else 0.0
+    frac = lorentz_fraction(fit.p[ia + 1]) if gam > 0 else 0.0
     ag, al = ew * (1.0 - frac), ew * frac
     depth = ag / (s * np.sqrt(2.0 * np.pi)) + (al / (np.pi * gam) if gam > 0 else 0.0)
     sig = abs(ew) / ew_err if ew_err > 0 else 0.0

@@ -9,7 +9,8 @@ Two component shapes are used:
     A Gaussian, for He and metal lines broadened by the instrument and rotation.
 ``"wing"``
     A Gaussian core plus a Lorentzian wing sharing one centre: total area ``A``, a
-    fraction ``f`` (bounded to [0, 1]) of it in the Lorentzian. A fast analytic stand-in
+    fraction ``f = 1 / (1 + exp(-q))`` of it in the Lorentzian (``q`` is the parameter,
+    so f stays in (0, 1) without hard bounds). A fast analytic stand-in
     for a Voigt profile that also follows Stark-broadened Balmer wings (the Lorentzian
     carries the far wing, the Gaussian the core); the bounded fraction keeps core and wing
     from cancelling each other.
@@ -41,6 +42,7 @@ __all__ = [
     "fit_blend",
     "profile_fwhm",
     "fit_single_line",
+    "lorentz_fraction",
 ]
 
 #: Speed of light in km/s (exact, SI definition).
@@ -50,6 +52,11 @@ _SQRT2PI = float(np.sqrt(2.0 * np.pi))
 FWHM_PER_SIGMA = 2.0 * float(np.sqrt(2.0 * np.log(2.0)))
 
 Shape = Literal["gauss", "wing"]
+
+
+def lorentz_fraction(q):
+    """Lorentzian share of a ``"wing"`` component from its logit parameter ``q``."""
+    return 1.0 / (1.0 + np.exp(-q))
 
 
 def gaussian(x: np.ndarray, mu: float, sigma: float) -> np.ndarray:
@@ -101,7 +108,7 @@ class BlendModel:
 
     Parameter vector: ``b0, b1``, one velocity (km/s) per velocity group, one
     ``ln(sigma)`` per width group, then per component its area ``A`` (and for ``"wing"``
-    shapes the Lorentzian fraction ``f`` and ``ln(gamma)``).
+    shapes the logit ``q`` of the Lorentzian fraction and ``ln(gamma)``).
     """
 
     components: list[Component]
@@ -120,44 +127,56 @@ class BlendModel:
             k += 3 if c.shape == "wing" else 1
         self.amp_index = idx
         self.npar = k
+        # vectorised bookkeeping: one column per component
+        self._rest = np.array([c.rest for c in self.components])
+        self._vg = np.array([c.vgroup for c in self.components])
+        self._wg = np.array([c.wgroup for c in self.components])
+        self._ia = np.array(idx)
+        self._wing = np.array([c.shape == "wing" for c in self.components])
+        self._iaw = self._ia[self._wing]
+        self._pv = np.eye(self.nv)[self._vg]  # (K, nv) component -> velocity group
+        self._pw = np.eye(self.nw)[self._wg]
 
     def evaluate(self, p: np.ndarray, x: np.ndarray, jac: bool = False):
         """Model flux at ``x`` and, if ``jac``, the Jacobian (n_x, n_par)."""
         t = (x - self.xmid) / self.halfspan
-        m = p[0] + p[1] * t
-        J = np.zeros((x.size, self.npar)) if jac else None
-        if jac:
-            J[:, 0] = 1.0
-            J[:, 1] = t
-        for c, ia in zip(self.components, self.amp_index):
-            iv, iw = 2 + c.vgroup, 2 + self.nv + c.wgroup
-            dmu_dv = c.rest / C_KMS
-            mu = c.rest + p[iv] * dmu_dv
-            s = np.exp(p[iw])
-            u = (x - mu) / s
-            g = np.exp(-0.5 * u * u) / (s * _SQRT2PI)
-            area = p[ia]
-            if c.shape == "wing":
-                frac, gam = p[ia + 1], np.exp(p[ia + 2])
-                a, al = area * (1.0 - frac), area * frac
-            else:
-                a = area
-            m -= a * g
-            if jac:
-                J[:, ia] = -g
-                J[:, iv] -= a * g * u / s * dmu_dv
-                J[:, iw] -= a * g * (u * u - 1.0)
-            if c.shape == "wing":
-                d = x - mu
-                den = d * d + gam * gam
-                lor = gam / np.pi / den
-                m -= al * lor
-                if jac:
-                    J[:, ia] = -((1.0 - frac) * g + frac * lor)
-                    J[:, ia + 1] = -area * (lor - g)
-                    J[:, iv] -= al * lor * 2.0 * d / den * dmu_dv
-                    J[:, ia + 2] = -al * lor * (1.0 - 2.0 * gam * gam / den)
-        return (m, J) if jac else m
+        dmu = self._rest / C_KMS
+        mu = self._rest + p[2 + self._vg] * dmu
+        s = np.exp(p[2 + self.nv + self._wg])
+        area = p[self._ia]
+        frac = np.zeros(area.size)
+        frac[self._wing] = lorentz_fraction(p[self._iaw + 1])
+        a = area * (1.0 - frac)
+        d = x[:, None] - mu
+        u = d / s
+        g = np.exp(-0.5 * u * u) / (s * _SQRT2PI)
+        m = p[0] + p[1] * t - g @ a
+        wing = self._wing.any()
+        if wing:
+            gam = np.exp(p[self._iaw + 2])
+            al = area[self._wing] * frac[self._wing]
+            dw = d[:, self._wing]
+            den = dw * dw + gam * gam
+            lor = gam / np.pi / den
+            m -= lor @ al
+        if not jac:
+            return m
+        J = np.zeros((x.size, self.npar))
+        J[:, 0] = 1.0
+        J[:, 1] = t
+        J[:, self._ia] = -g
+        ag = a * g
+        dv = -(ag * u / s * dmu)
+        J[:, 2 + self.nv:2 + self.nv + self.nw] = -(ag * (u * u - 1.0)) @ self._pw
+        if wing:
+            gw = g[:, self._wing]
+            fw = frac[self._wing]
+            J[:, self._iaw] = -((1.0 - fw) * gw + fw * lor)
+            J[:, self._iaw + 1] = -area[self._wing] * (lor - gw) * fw * (1.0 - fw)
+            J[:, self._iaw + 2] = -al * lor * (1.0 - 2.0 * gam * gam / den)
+            dv[:, self._wing] -= al * lor * 2.0 * dw / den * dmu[self._wing]
+        J[:, 2:2 + self.nv] = dv @ self._pv
+        return m, J
 
     def component_profile(self, p: np.ndarray, x: np.ndarray, k: int) -> np.ndarray:
         """Absorbed flux (area-weighted profile) of component ``k`` alone."""
@@ -166,7 +185,7 @@ class BlendModel:
         g = gaussian(x, mu, np.exp(p[2 + self.nv + c.wgroup]))
         if c.shape != "wing":
             return p[ia] * g
-        frac = p[ia + 1]
+        frac = lorentz_fraction(p[ia + 1])
         return p[ia] * ((1.0 - frac) * g + frac * lorentzian(x, mu, np.exp(p[ia + 2])))
 
 
@@ -241,7 +260,7 @@ def profile_fwhm(area_g: float, sigma: float, area_l: float, gamma: float) -> fl
 
 
 def _levenberg_marquardt(fun_jac, p0, free, lower, upper, linear=False, max_iter=60,
-                         tol=1e-7):
+                         tol=1e-3):
     """Minimise |r(p)|^2 over ``p[free]`` within [lower, upper]; ``fun_jac(p)`` gives (r, J).
 
     Steps are projected onto the bounds. With ``linear`` (r linear in the free parameters)
@@ -256,14 +275,19 @@ def _levenberg_marquardt(fun_jac, p0, free, lower, upper, linear=False, max_iter
         except np.linalg.LinAlgError:
             step = np.linalg.lstsq(Jf, -r, rcond=None)[0]
         p[free] += step
-        r, J = fun_jac(p)
-        return p, r, J
+        return p, r + Jf @ step, J
     cost = float(r @ r)
     lam = 1e-3
+    all_free = free
     for _ in range(max_iter):
+        # parameters held at a bound by the gradient sit this step out (active set)
+        grad = J[:, all_free].T @ r
+        pa = p[all_free]
+        held = ((pa <= lower[all_free]) & (grad > 0)) | ((pa >= upper[all_free]) & (grad < 0))
+        free = all_free[~held]
         Jf = J[:, free]
         A = Jf.T @ Jf
-        g = Jf.T @ r
+        g = grad[~held]
         d = np.diag(A).copy()
         d[d <= 0] = 1.0
         improved = False
@@ -284,7 +308,7 @@ def _levenberg_marquardt(fun_jac, p0, free, lower, upper, linear=False, max_iter
             lam *= 8.0
         if not improved:
             break
-        done = cost - cn <= tol * max(cost, 1.0)
+        done = cost - cn <= tol  # chi-square units: 1e-3 is far below a 1-sigma change
         p, r, J, cost = pn, rn, Jn, cn
         lam = max(lam / 5.0, 1e-9)
         if done:
