@@ -108,18 +108,27 @@ def saha_fractions(element: str, temperature, n_e) -> np.ndarray:
     return _fractions(_saha_factors(element, t), np.log(np.asarray(n_e, dtype=float)))
 
 
-def _electron_density(p_gas, t, he) -> np.ndarray:
-    """Solve P = (N + n_e) k T with Saha ionization of H and He, by bisection in log n_e."""
+def _electron_density(p_gas, t, he, factors=None) -> np.ndarray:
+    """Solve P = (N + n_e) k T with Saha ionization of H and He, by bisection in log n_e.
+
+    ``factors`` are the Saha factors (:func:`_saha_factors`) of H and He at ``t`` when the
+    caller already has them.
+    """
     n_tot = p_gas / (K_B * t)
-    f_h = _saha_factors("H", t)
-    f_he = _saha_factors("He", t)
+    f_h, f_he = factors if factors is not None else (_saha_factors("H", t),
+                                                     _saha_factors("He", t))
     lo = np.log(n_tot * 1e-12)
     hi = np.log(n_tot * 0.75)
     for _ in range(32):
         mid = 0.5 * (lo + hi)
-        fh = _fractions(f_h, mid)
-        fhe = _fractions(f_he, mid)
-        charge = (fh[1] + he * (fhe[1] + 2 * fhe[2])) / (1.0 + he)
+        # closed forms of the fractions: H II / H = x / (1 + x); He with r1 = He II / He I
+        # and r2 = He III / He I (exponents clipped: only ratios of them matter)
+        x = np.exp(np.clip(f_h[0] - mid, -700.0, 700.0))
+        l1 = f_he[0] - mid
+        l2 = l1 + f_he[1] - mid
+        top = np.maximum(np.maximum(l1, l2), 0.0)
+        e0, e1, e2 = np.exp(-top), np.exp(l1 - top), np.exp(l2 - top)
+        charge = (x / (1.0 + x) + he * (e1 + 2.0 * e2) / (e0 + e1 + e2)) / (1.0 + he)
         ne = np.exp(mid)
         excess = ne - (n_tot - ne) * charge
         hi = np.where(excess > 0, mid, hi)
@@ -156,12 +165,14 @@ def grey_atmosphere(teff: float, logg: float, he: float) -> Atmosphere:
     g = 10.0**logg
     mu = (1.0 + 4.0 * he) / (1.0 + he) * M_H  # mass per nucleus (metals neglected)
 
-    def kappa_of(p, t):
-        ne = _electron_density(p, t, he)
+    factors = (_saha_factors("H", temp), _saha_factors("He", temp))
+
+    def kappa_of(p, t):  # always called with t = temp, the temperature of the factors
+        ne = _electron_density(p, t, he, factors)
         n_nuc = p / (K_B * t) - ne
         n_h = n_nuc / (1.0 + he)
-        fh = saha_fractions("H", t, ne)
-        fhe = saha_fractions("He", t, ne)
+        fh = _fractions(factors[0], np.log(ne))
+        fhe = _fractions(factors[1], np.log(ne))
         k = continuum_opacity(t, ne, n_h, he, fh, fhe)
         return k / (n_nuc * mu), ne, n_nuc, k, fh, fhe
 

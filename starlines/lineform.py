@@ -31,6 +31,7 @@ __all__ = [
     "microturbulence",
     "half_profile_grid",
     "residual_profile",
+    "residual_profiles",
     "emergent_flux",
 ]
 
@@ -133,65 +134,88 @@ def lower_level_density(data: LineData, atm: Atmosphere) -> np.ndarray:
     )
 
 
-def _profile(data: LineData, wavelength: float, dl: np.ndarray, atm: Atmosphere) -> np.ndarray:
-    """Absorption profile phi (Angstrom^-1), shape (n_dl, n_depth)."""
-    t = atm.temperature
-    mass = ELEMENT_MASS[data.element] * _AMU
+def _doppler_sigma(datas, waves: np.ndarray, atm: Atmosphere) -> np.ndarray:
+    """Gaussian sigma (Angstrom) of thermal + microturbulent motions, shape (n_lines, n_depth)."""
+    mass = np.array([ELEMENT_MASS[d.element] for d in datas]) * _AMU
     # squared 1/e Doppler velocity (cm/s)^2: thermal plus microturbulent
-    v2 = 2.0 * K_B * t / mass + (microturbulence(atm.logg) * 1e5) ** 2
-    sigma = wavelength * np.sqrt(v2 / 2.0) / C_CGS
-    x = dl[:, None]
-    if data.profile == "hydrogenic":
-        z = 1 if data.element == "H" else 2
-        width = stark_constant(wavelength, data.n_lower, data.n_upper, z) * normal_field(atm.n_e)
-        return stark_doppler_profile(x, width[None, :], sigma[None, :])
-    if data.profile == "hei":
-        gamma = data.stark_hwhm * atm.n_e / 1e16
-    else:
-        gamma = 1e-4 + 0.002 * atm.n_e / 1e16  # radiative + small quadratic Stark (memory)
-    return voigt(x, sigma[None, :], gamma[None, :])
+    v2 = 2.0 * K_B * atm.temperature[None, :] / mass[:, None] + (
+        microturbulence(atm.logg) * 1e5
+    ) ** 2
+    return waves[:, None] * np.sqrt(v2 / 2.0) / C_CGS
 
 
-def residual_profile(
-    data: LineData, wavelength: float, atm: Atmosphere, dl: np.ndarray | None = None
-) -> tuple[np.ndarray, np.ndarray]:
-    """Residual flux R(|d lambda|) of one isolated line.
+def _profiles(kind: str, datas, waves: np.ndarray, dl: np.ndarray, atm: Atmosphere):
+    """Absorption profiles phi (1/Angstrom) of one kind of line, shape (n_lines, n_dl, n_depth)."""
+    sigma = _doppler_sigma(datas, waves, atm)[:, None, :]
+    x = dl[:, :, None]
+    if kind == "hydrogenic":
+        c = np.array([
+            stark_constant(w, d.n_lower, d.n_upper, 1 if d.element == "H" else 2)
+            for d, w in zip(datas, waves)
+        ])
+        width = c[:, None] * normal_field(atm.n_e)[None, :]
+        return stark_doppler_profile(x, width[:, None, :], sigma)
+    if kind == "hei":
+        hwhm = np.array([d.stark_hwhm for d in datas])
+        gamma = hwhm[:, None] * atm.n_e[None, :] / 1e16
+    else:  # radiative + small quadratic Stark (from memory)
+        gamma = np.broadcast_to(1e-4 + 0.002 * atm.n_e / 1e16, (len(datas), atm.n_e.size))
+    return voigt(x, sigma, gamma[:, None, :])
+
+
+def _center_opacity(data: LineData, wavelength: float, atm: Atmosphere) -> np.ndarray:
+    """Line opacity per unit profile (cm^-1 Angstrom) at each depth, with stimulated emission."""
+    lam_cm = wavelength * 1e-8
+    stim = 1.0 - np.exp(-H_PLANCK * C_CGS / (lam_cm * K_B * atm.temperature))
+    f_value = 10.0**data.log_gf / data.g_lower
+    return _PI_RE * lam_cm**2 * f_value * lower_level_density(data, atm) * stim * 1e8
+
+
+def residual_profiles(lines, atm: Atmosphere) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Residual flux R(|d lambda|) of isolated lines, computed in batches of one profile kind.
 
     Parameters
     ----------
-    data : LineData
-        Atomic data of the line.
-    wavelength : float
-        Rest wavelength (Angstrom).
+    lines : sequence of (LineData, float)
+        Atomic data and rest wavelength (Angstrom) of each line.
     atm : Atmosphere
         Model atmosphere.
-    dl : array, optional
-        Distances from line centre (Angstrom, >= 0); default :func:`half_profile_grid`.
 
     Returns
     -------
-    dl, residual : numpy.ndarray
-        Sampling and F_line / F_continuum at each sample.
+    list of (dl, residual)
+        For each line, the sampling |d lambda| (Angstrom, :func:`half_profile_grid`) and
+        F_line / F_continuum there.
     """
-    if dl is None:
-        dl = half_profile_grid(data)
-    t = atm.temperature
-    lam_cm = wavelength * 1e-8
-    stim = 1.0 - np.exp(-H_PLANCK * C_CGS / (lam_cm * K_B * t))
-    f_value = 10.0**data.log_gf / data.g_lower
-    n_low = lower_level_density(data, atm)
-    kappa_center = _PI_RE * lam_cm**2 * f_value * n_low * stim * 1e8  # times phi [1/Angstrom]
-    eta = kappa_center[None, :] * _profile(data, wavelength, dl, atm) / atm.kappa[None, :]
+    out: list = [None] * len(lines)
+    groups: dict[str, list[int]] = {}
+    for k, (data, _) in enumerate(lines):
+        groups.setdefault(data.profile, []).append(k)
     tau = atm.tau
     dtau = np.diff(tau)
-    one_eta = 1.0 + eta
-    tau_line = np.concatenate(
-        [one_eta[:, :1] * tau[0],
-         one_eta[:, :1] * tau[0]
-         + np.cumsum(0.5 * (one_eta[:, 1:] + one_eta[:, :-1]) * dtau, axis=1)],
-        axis=1,
-    )
-    source = _planck_shape(wavelength, t)
-    f_line = emergent_flux(source[None, :], tau_line)
-    f_cont = emergent_flux(source, tau)
-    return dl, f_line / f_cont
+    for kind, idx in groups.items():
+        datas = [lines[k][0] for k in idx]
+        waves = np.array([float(lines[k][1]) for k in idx])
+        dl = np.array([half_profile_grid(d) for d in datas])
+        kc = np.array([_center_opacity(d, w, atm) for d, w in zip(datas, waves)])
+        one_eta = 1.0 + kc[:, None, :] * _profiles(kind, datas, waves, dl, atm) / atm.kappa
+        first = one_eta[..., :1] * tau[0]
+        tau_line = np.concatenate(
+            [first, first + np.cumsum(0.5 * (one_eta[..., 1:] + one_eta[..., :-1]) * dtau,
+                                      axis=-1)],
+            axis=-1,
+        )
+        source = np.array([_planck_shape(w, atm.temperature) for w in waves])
+        f_line = emergent_flux(source[:, None, :], tau_line)
+        f_cont = emergent_flux(source, np.broadcast_to(tau, source.shape))
+        resid = f_line / f_cont[:, None]
+        for j, k in enumerate(idx):
+            out[k] = (dl[j], resid[j])
+    return out
+
+
+def residual_profile(
+    data: LineData, wavelength: float, atm: Atmosphere
+) -> tuple[np.ndarray, np.ndarray]:
+    """Residual flux of one isolated line (see :func:`residual_profiles`)."""
+    return residual_profiles([(data, wavelength)], atm)[0]

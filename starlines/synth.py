@@ -26,7 +26,7 @@ from starlines.atmosphere import grey_atmosphere
 from starlines.atomic import line_data
 from starlines.broadening import gaussian_kernel, rotation_kernel
 from starlines.errors import ConfigError
-from starlines.lineform import residual_profile
+from starlines.lineform import residual_profiles
 from starlines.lines import all_lines, line
 from starlines.synthcal import MODEL_VERSION, model_temperature, strength_exponent
 
@@ -65,12 +65,11 @@ def _check_parameters(teff: float, logg: float, he: float) -> tuple[float, float
 def _line_profiles(teff: float, logg: float, he: float) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Calibrated half profiles (d lambda >= 0, residual flux) of every catalogue line."""
     atm = grey_atmosphere(model_temperature(teff, logg), logg, he)
+    lines = all_lines()
+    profiles = residual_profiles([(line_data(ln.id), ln.wavelength_air) for ln in lines], atm)
     out = {}
-    for ln in all_lines():
-        data = line_data(ln.id)
-        dl, resid = residual_profile(data, ln.wavelength_air, atm)
-        resid = np.clip(resid, 1e-6, 1.0) ** strength_exponent(ln.id)
-        out[ln.id] = (dl, resid)
+    for ln, (dl, resid) in zip(lines, profiles):
+        out[ln.id] = (dl, np.clip(resid, 1e-6, 1.0) ** strength_exponent(ln.id))
     return out
 
 
