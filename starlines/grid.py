@@ -185,11 +185,19 @@ def load_grid(path=None):
     return tab
 
 
-def write_grid(tab, path=None) -> Path:
-    """Write ``tab`` as ECSV (default: the shipped location) and return the path."""
+def grid_output_path(path=None) -> Path:
+    """Checked output path for a grid: ``path`` (must end in .ecsv) or the shipped file."""
     p = shipped_grid_path() if path is None else Path(path)
     if p.suffix.lower() != ".ecsv":
         raise ConfigError("the grid is written as ECSV; give a .ecsv file name", path=str(p))
+    if not p.parent.is_dir():
+        raise ConfigError("the output folder does not exist", path=str(p))
+    return p
+
+
+def write_grid(tab, path=None) -> Path:
+    """Write ``tab`` as ECSV (default: the shipped location) and return the path."""
+    p = grid_output_path(path)
     tab.write(p, format="ascii.ecsv", overwrite=True)
     return p
 

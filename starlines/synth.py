@@ -298,7 +298,8 @@ def parameters_for_type(subtype: float, lumclass: str = "V") -> tuple[float, flo
     Parameters
     ----------
     subtype : float
-        O3 -> 3.0 ... O9.7 -> 9.7, B0 -> 10.0, B0.5 -> 10.5 ... B3 -> 13.0.
+        O3 -> 3.0 ... O9.7 -> 9.7, B0 -> 10.0, B0.5 -> 10.5 ... B3 -> 13.0 (up to B5 =
+        15.0; the model is calibrated for O3-B3).
     lumclass : str
         "V", "IV", "III", "II", "I", "Ib", "Iab" or "Ia".
     """
@@ -309,7 +310,7 @@ def parameters_for_type(subtype: float, lumclass: str = "V") -> tuple[float, flo
         raise ConfigError(
             f"unknown luminosity class {lumclass!r}; valid: V, IV, III, II, Ib, Iab, Ia, I"
         )
-    if not np.isfinite(subtype) or not 3.0 <= subtype <= 13.0:
-        raise ConfigError(f"subtype {subtype!r} is outside O3-B3 (3.0-13.0)")
+    if not np.isfinite(subtype) or not 3.0 <= subtype <= 15.0:
+        raise ConfigError(f"subtype {subtype!r} is outside O3-B5 (3.0-15.0)")
     teff, logg = type_parameters(float(subtype), _LUMCLASS_NUMBER[key])
     return float(teff), float(logg)

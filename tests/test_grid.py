@@ -70,6 +70,13 @@ def test_load_grid_errors(tmp_path):
         load_grid(bad)
 
 
+def test_cli_grid_build_rejects_bad_output_before_building(tmp_path, capsys):
+    from starlines.cli import main
+
+    assert main(["grid", "build", "--out", str(tmp_path / "grid.txt")]) == 2
+    assert "ECSV" in capsys.readouterr().err
+
+
 def test_cli_grid_show(capsys):
     from starlines.cli import main
 

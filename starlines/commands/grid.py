@@ -23,9 +23,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Build or show the grid."""
-    from starlines.grid import build_grid, load_grid, nearest_model, write_grid
+    from starlines.grid import build_grid, grid_output_path, load_grid, nearest_model, write_grid
 
     if args.grid_action == "build":
+        grid_output_path(args.out)  # fail before a minute of work, not after
         tab = build_grid(progress=not args.no_progress)
         path = write_grid(tab, args.out)
         print(f"wrote {len(tab)} models x {len(tab.colnames) - 4} lines to {path}")
