@@ -132,6 +132,9 @@ def _groups(fit: list[PlannedLine]) -> list[list[PlannedLine]]:
             for q in g:
                 sep = abs(q.obs - pl.obs)
                 reach = max(q.halfwidth, pl.halfwidth) + 2.0 * min(q.fwhm, pl.fwhm)
+                if q.line.kind == "balmer" or pl.line.kind == "balmer":
+                    # a neighbour must reach into the Balmer window to join it
+                    reach = max(q.halfwidth, pl.halfwidth) + 0.5 * min(q.fwhm, pl.fwhm)
                 if sep < reach:
                     joined = g
                     break

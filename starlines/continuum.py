@@ -49,6 +49,8 @@ INTRINSIC_FWHM = {"hei": 0.8, "heii": 2.0, "metal": 0.3, "balmer": 6.0}
 #: Distance (Angstrom) from the nearest continuum pixel over which the interpolation error
 #: of the continuum grows by one ``scatter``.
 GAP_SCALE = 30.0
+#: A reference line found further than this (km/s) from its rest wavelength is ignored.
+MAX_GUESS_KMS = 300.0
 #: Lines tried, in order, as the width reference.
 REFERENCE_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026", "HeI4144", "HeII4541",
                    "SiIII4553", "HeII4686")
@@ -116,8 +118,10 @@ def expected_fwhm(ln: Line, fwhm: float) -> float:
 def _halfwidth(ln: Line, fwhm: float) -> float:
     if ln.kind == "balmer":
         base = BALMER_HALFWIDTH.get(ln.upper, 10.0)
-        return float(np.hypot(base, 1.5 * fwhm))
-    return 1.75 * expected_fwhm(ln, fwhm)
+        return float(np.hypot(base, fwhm))
+    # +-1 FWHM leaves 6 % of a Gaussian's depth at the edge; the asymmetric clipping takes
+    # the rest, so broad-lined spectra keep enough continuum pixels
+    return max(expected_fwhm(ln, fwhm), 3.0)
 
 
 def line_windows(lines: list[Line], medium: str, fwhm: float) -> list[tuple[Line, float, float]]:
@@ -140,7 +144,7 @@ def _window_mask(w: np.ndarray, windows, shift: float = 0.0) -> np.ndarray:
 class _PSpline:
     """Penalized cubic B-spline on fixed knots, refitted cheaply with new weights."""
 
-    def __init__(self, w: np.ndarray, spacing: float, penalty: float = 1e-3):
+    def __init__(self, w: np.ndarray, spacing: float, penalty: float = 1e-2):
         span = w[-1] - w[0]
         nint = max(1, int(round(span / spacing)))
         inner = np.linspace(w[0], w[-1], nint + 1)
@@ -193,6 +197,8 @@ def _reference_width(w, ynorm, err, good, lines, medium, fwhm):
         res = fit_single_line(w, ynorm, err, good, ln.wavelength(medium), fwhm)
         if res is None:
             continue
+        if abs(res["rv"]) > MAX_GUESS_KMS:  # locked onto something else
+            continue
         if res["significance"] > 8 and res["ew"] > 0:
             return ident, res
         if best is None or res["significance"] > best[1]["significance"]:
@@ -207,7 +213,7 @@ def fit_continuum(
     *,
     resolution_fwhm: float | None = None,
     line_fwhm: float | None = None,
-    knot_spacing: float = 150.0,
+    knot_spacing: float = 200.0,
     clip_low: float = 2.0,
     clip_high: float = 3.0,
     max_iter: int = 10,

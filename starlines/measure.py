@@ -60,6 +60,12 @@ CONTINUUM_FLOOR = 1e-3
 #: exceeds CLIP_CHI2; pixels beyond CLIP_SIGMA (robust) outside the fitted cores are dropped.
 CLIP_CHI2 = 3.0
 CLIP_SIGMA = 4.0
+#: Line-id prefixes of lines that go into emission in O, Of, Oe and Be stars (common
+#: practice): Balmer, He II 4686, N III 4634-42, C III 4647-51, Si IV (Of), He I 5876/6678.
+EMISSION_PRONE = ("HI", "HeII4686", "NIII", "CIII", "SiIV", "HeI5876", "HeI6678")
+#: Largest Lorentzian half-width (Angstrom) of a Balmer wing: Stark widths of B dwarfs are a
+#: few Angstrom (common practice); broader "wings" would only absorb continuum errors.
+MAX_LORENTZ_HWHM = 12.0
 #: He I lines tried, in order, for v sin i.
 VSINI_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026")
 
@@ -95,7 +101,7 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
             p[ia + 2], prior[ia + 2] = np.log(2.5), 1.0
         else:
             prior[iv] = max(30.0, 0.25 * C_KMS * pl.fwhm / pl.rest)
-            p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.5
+            p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.35
     cols = []
     for c in model.components:
         mu = c.rest * (1.0 + v0 / C_KMS)
@@ -110,13 +116,15 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
         sol, var = np.linalg.lstsq(X, y, rcond=None)[0], np.full(X.shape[1], np.inf)
     free = np.zeros(model.npar, dtype=bool)
     free[:2] = True
+    amp_sigma = np.zeros(len(model.components))
     j = 2
-    for c, ia in zip(model.components, model.amp_index):
+    for k, (c, ia) in enumerate(zip(model.components, model.amp_index)):
         nj = 2 if c.shape == "wing" else 1
         area = sol[j:j + nj].sum()
         p[ia] = area
         free[ia] = True
-        strong = abs(area) > DETECTION_SIGMA * np.sqrt(var[j:j + nj].sum())
+        amp_sigma[k] = np.sqrt(var[j:j + nj].sum())
+        strong = abs(area) > DETECTION_SIGMA * amp_sigma[k]
         if c.shape == "wing":
             f0 = np.clip(sol[j + 1] / area, 0.2, 0.8) if area != 0 else 0.5
             p[ia + 1], prior[ia + 1] = np.log(f0 / (1.0 - f0)), 3.0
@@ -125,24 +133,33 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
             if c.shape == "wing":
                 free[ia + 1:ia + 3] = True
         j += nj
-    return p, prior, free
+    return p, prior, free, amp_sigma
 
 
-def _bounds(model: BlendModel, p0: np.ndarray, prior: np.ndarray, dx: float,
-            halfspan: float):
+def _bounds(model: BlendModel, p0: np.ndarray, prior: np.ndarray, amp_sigma: np.ndarray,
+            dx: float, halfspan: float):
     """Hard limits: velocities and log-widths within 2 prior sigma of the start, widths
     between a third of a pixel and the window half-span, Lorentzian half-widths below a
-    quarter of the half-span (broader wings trade against the baseline)."""
+    quarter of the half-span (broader wings trade against the baseline); lines that do not
+    go into emission in hot stars (:data:`EMISSION_PRONE`) may go negative only by noise
+    (3 sigma of the linear first guess), so two blended components cannot cancel."""
     lo, hi = np.full(model.npar, -np.inf), np.full(model.npar, np.inf)
     shape = slice(2, 2 + model.nv + model.nw)
     lo[shape], hi[shape] = p0[shape] - 2.0 * prior[shape], p0[shape] + 2.0 * prior[shape]
     s = slice(2 + model.nv, 2 + model.nv + model.nw)
     lo[s] = np.maximum(lo[s], np.log(dx / 3.0))
     hi[s] = np.minimum(hi[s], np.log(halfspan))
-    for c, ia in zip(model.components, model.amp_index):
+    for k, (c, ia) in enumerate(zip(model.components, model.amp_index)):
         if c.shape == "wing":
-            lo[ia + 2], hi[ia + 2] = np.log(dx / 3.0), np.log(halfspan / 4.0)
+            lo[ia + 2] = np.log(dx / 3.0)
+            hi[ia + 2] = np.log(min(halfspan / 4.0, MAX_LORENTZ_HWHM))
+        if not _emission_prone(c.name):
+            lo[ia] = -DETECTION_SIGMA * amp_sigma[k]
     return lo, hi
+
+
+def _emission_prone(ident: str) -> bool:
+    return ident.startswith(EMISSION_PRONE)
 
 
 def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
@@ -156,9 +173,11 @@ def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
     model = BlendModel(comps, 0.5 * (g.lo + g.hi), 0.5 * (g.hi - g.lo))
     if x.size < model.npar + 3:
         return None, x
-    p0, prior, free = _initial(model, g.members, x, yy, ee, fwhm, v0,
+    p0, prior, free, amp_sigma = _initial(model, g.members, x, yy, ee, fwhm, v0,
                                float(np.mean(cerr[i0:i1])))
-    bounds = _bounds(model, p0, prior, float(np.median(np.diff(x))), model.halfspan)
+    p0[model.amp_index] = np.maximum(p0[model.amp_index], -DETECTION_SIGMA * amp_sigma)
+    bounds = _bounds(model, p0, prior, amp_sigma, float(np.median(np.diff(x))),
+                     model.halfspan)
     fit = fit_blend(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
                     floor_chi2=floor_chi2)
     if fit.chi2_red > CLIP_CHI2:
