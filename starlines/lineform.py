@@ -171,6 +171,22 @@ def _center_opacity(data: LineData, wavelength: float, atm: Atmosphere) -> np.nd
     return _PI_RE * lam_cm**2 * f_value * lower_level_density(data, atm) * stim * 1e8
 
 
+#: Line source-function depression S_line = beta(tau) B with
+#: beta = 1 - (1 - BETA_SURFACE) exp(-tau / BETA_DEPTH) (tau = grey continuum optical depth):
+#: a parametrised stand-in for the non-LTE drop of the line source function in the outer
+#: layers (b_u / b_l < 1), which deepens the cores of strong lines and leaves weak lines and
+#: wings (formed deep) nearly unchanged. Applied to H I and He II only (LTE cores of the
+#: Balmer lines are far too shallow: residual 0.7 against ~0.5 observed at 2.5 A in MILES
+#: B stars); values empirical (see grids/README.md).
+BETA_SURFACE = {"hydrogenic": 0.5, "hei": 1.0, "metal": 1.0}
+BETA_DEPTH = 0.01
+
+
+def source_depression(tau: np.ndarray, kind: str) -> np.ndarray:
+    """beta(tau): ratio of the line source function to the Planck function."""
+    return 1.0 - (1.0 - BETA_SURFACE[kind]) * np.exp(-tau / BETA_DEPTH)
+
+
 def residual_profiles(lines, atm: Atmosphere) -> list[tuple[np.ndarray, np.ndarray]]:
     """Residual flux R(|d lambda|) of isolated lines, computed in batches of one profile kind.
 
@@ -198,7 +214,8 @@ def residual_profiles(lines, atm: Atmosphere) -> list[tuple[np.ndarray, np.ndarr
         waves = np.array([float(lines[k][1]) for k in idx])
         dl = np.array([half_profile_grid(d) for d in datas])
         kc = np.array([_center_opacity(d, w, atm) for d, w in zip(datas, waves)])
-        one_eta = 1.0 + kc[:, None, :] * _profiles(kind, datas, waves, dl, atm) / atm.kappa
+        eta = kc[:, None, :] * _profiles(kind, datas, waves, dl, atm) / atm.kappa
+        one_eta = 1.0 + eta
         first = one_eta[..., :1] * tau[0]
         tau_line = np.concatenate(
             [first, first + np.cumsum(0.5 * (one_eta[..., 1:] + one_eta[..., :-1]) * dtau,
@@ -206,7 +223,8 @@ def residual_profiles(lines, atm: Atmosphere) -> list[tuple[np.ndarray, np.ndarr
             axis=-1,
         )
         source = np.array([_planck_shape(w, atm.temperature) for w in waves])
-        f_line = emergent_flux(source[:, None, :], tau_line)
+        beta = source_depression(atm.tau, kind)
+        f_line = emergent_flux(source[:, None, :] * (1.0 + eta * beta) / one_eta, tau_line)
         f_cont = emergent_flux(source, np.broadcast_to(tau, source.shape))
         resid = f_line / f_cont[:, None]
         for j, k in enumerate(idx):
