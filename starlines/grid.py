@@ -79,7 +79,12 @@ def compute_row(teff: float, logg: float, he: float) -> dict[str, float]:
 
 def _metadata() -> dict:
     from starlines import __version__
-    from starlines.lineform import MICROTURBULENCE, MICROTURBULENCE_SUPERGIANT
+    from starlines.lineform import (
+        BETA_DEPTH,
+        BETA_SURFACE,
+        MICROTURBULENCE,
+        MICROTURBULENCE_SUPERGIANT,
+    )
     from starlines.synthcal import (
         B_STAR_OFFSET,
         KNOTS_I,
@@ -103,6 +108,7 @@ def _metadata() -> dict:
         "temperature_knots_V": [list(k) for k in KNOTS_V],
         "temperature_knots_I": [list(k) for k in KNOTS_I],
         "b_star_offset_K": B_STAR_OFFSET,
+        "line_source_depression": {"surface": dict(BETA_SURFACE), "depth_tau": BETA_DEPTH},
         "microturbulence_kms": f"{MICROTURBULENCE:g} at log g >= 3.75, "
         f"{MICROTURBULENCE_SUPERGIANT:g} at log g <= 2.75, linear in between",
         "axes": {"teff": list(TEFF_AXIS), "logg": list(LOGG_AXIS), "he": list(HE_AXIS)},

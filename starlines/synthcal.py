@@ -113,7 +113,9 @@ def calibration_statement() -> str:
         "Martins et al. (2005) observational Teff scale (dwarf and supergiant tracks, "
         f"linear in log g between them; taper to {B_STAR_OFFSET:+.0f} K at 20 kK); "
         f"residual flux R -> R^s per line group (s: {exps}) to match Jaschek & Jaschek "
-        "(1995) He I 4471 EWs and typical H-gamma EWs. Absolute EWs are good to ~30%; "
+        "(1995) He I 4471 EWs and typical H-gamma EWs; H I/He II line source function "
+        "depressed in the outer layers (beta = 1 - 0.5 exp(-tau/0.01)) for non-LTE-like "
+        "Balmer cores. Absolute EWs are good to ~30%; "
         "Teff on the calibrated scale to ~1500 K in the O range."
     )
 

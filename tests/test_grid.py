@@ -49,6 +49,7 @@ def test_shipped_rows_rebuild_bit_for_bit(grid):
     points = grid_points()
     idx = list(range(0, len(points), 131)) + [len(points) - 1]
     fresh = build_grid([points[i] for i in idx])
+    assert dict(fresh.meta) == dict(grid.meta)  # model version, calibration numbers, axes
     for k, i in enumerate(idx):
         for name in fresh.colnames:
             assert fresh[name][k] == grid[name][i], (points[i], name)
