@@ -49,7 +49,8 @@ def run_child(mode: str, listfile: str, workdir: str, *extra: str) -> dict:
         raise SystemExit(f"workload {mode} failed with exit code {proc.returncode}")
     with open(out) as fh:
         data = json.load(fh)
-    data.update(wall=wall, peak_rss_mb=usage.ru_maxrss / 1024.0)
+    data.update(wall=wall, peak_rss_mb=usage.ru_maxrss / 1024.0,
+                cpu_s=usage.ru_utime + usage.ru_stime)
     return data
 
 
@@ -162,6 +163,10 @@ def parallel_figures(serial: dict, pool: dict, workers: int) -> dict:
         "serial_s": t1, "pool_s": tw, "pool_first_result_s": pool["first_result"],
         "serial_first_result_s": serial["first_result"],
         "efficiency": t1 / (workers * tw), "efficiency_steady": s1 / (workers * sw),
+        # load-independent: CPU seconds of the whole serial process tree over the pool's
+        # (workers included); < 1 means the pool spends CPU on overhead or warm-ups
+        "cpu_efficiency": serial["cpu_s"] / pool["cpu_s"],
+        "serial_cpu_s": serial["cpu_s"], "pool_cpu_s": pool["cpu_s"],
         "throughput_per_s": n / tw, "steady_throughput_per_s": 1.0 / sw,
         "pool_peak_rss_mb": pool["peak_rss_mb"],
         "per_spectrum_serial_ms": 1e3 * s1, "per_spectrum_pool_ms": 1e3 * sw,
@@ -214,6 +219,9 @@ def print_report(r: dict) -> None:
           f"{p['steady_throughput_per_s']:.1f} spectra/s steady; serial "
           f"{p['per_spectrum_serial_ms']:.0f} ms, pool {p['per_spectrum_pool_ms']:.0f} ms "
           "per spectrum (steady)")
+    print(f"CPU time: serial {p['serial_cpu_s']:.1f} s, pool {p['pool_cpu_s']:.1f} s "
+          f"(CPU efficiency {p['cpu_efficiency']:.2f}; wall-time efficiency needs an idle "
+          "machine: compare the load averages)")
     for k, v in r["startup"].items():
         print(f"start-up  {k:24s} {v:.3f} s")
     print("\nEW cross-check, median relative difference (specutils = true flat continuum, "
