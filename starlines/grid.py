@@ -27,6 +27,10 @@ __all__ = [
     "compute_row",
     "build_grid",
     "load_grid",
+    "write_grid",
+    "grid_output_path",
+    "nearest_model",
+    "line_ids",
     "shipped_grid_path",
     "eddington_gamma",
 ]

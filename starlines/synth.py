@@ -34,6 +34,7 @@ __all__ = [
     "synthetic_ews",
     "synthetic_spectrum",
     "add_emission",
+    "doppler_factor",
     "parameters_for_type",
     "line_profile",
     "MODEL_VERSION",
