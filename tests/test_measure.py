@@ -166,7 +166,8 @@ def test_unresolved_balmer_heii_pair_is_combined():
     assert he["status"] == "blended" and he["blended_with"] == "HI4340"
     assert np.isnan(he["ew"].value)
     assert "HeII4339" in hg["blended_with"]
-    assert hg["ew"].value == pytest.approx(5.4, rel=0.03)
+    # 4 %: one core+wing profile stands for a Voigt plus a Gaussian here (bias ~ +2 %)
+    assert hg["ew"].value == pytest.approx(5.4, rel=0.04)
 
 
 def test_balmer_heii_resolved_at_high_resolution():
