@@ -28,7 +28,7 @@ import numpy as np
 
 from starlines.blends import FitGroup, PlannedLine, plan_lines
 from starlines.continuum import ContinuumFit, fit_continuum
-from starlines.errors import MeasurementError
+from starlines.errors import ConfigError, MeasurementError
 from starlines.lines import Line, line, lines_in_range
 from starlines.profiles import (
     C_KMS,
@@ -254,7 +254,10 @@ def _resolve_lines(spec: Spectrum, lines) -> list[Line]:
     if lines is None:
         w = spec.wavelength
         return lines_in_range(w[0] - NEAR_MARGIN, w[-1] + NEAR_MARGIN, medium=spec.medium)
-    out = [line(x) if isinstance(x, str) else x for x in lines]
+    try:
+        out = [line(x) if isinstance(x, str) else x for x in lines]
+    except KeyError as exc:
+        raise ConfigError(str(exc.args[0]), path=spec.path or None) from None
     return sorted(out, key=lambda ln: ln.wavelength_air)
 
 
@@ -291,6 +294,8 @@ def measure_lines(spec: Spectrum, *, continuum: ContinuumFit | None = None, line
     ------
     MeasurementError
         If no catalogue line lies in or near the spectrum.
+    ConfigError
+        If ``lines`` names an unknown line id.
     """
     spec.validate()
     cf = continuum if continuum is not None else fit_continuum(spec)

@@ -341,3 +341,43 @@ def test_cli_measure_bad_file(tmp_path, capsys):
     assert main(["measure", str(bad)]) == 2
     err = capsys.readouterr().err
     assert "junk.fits" in err and "Traceback" not in err
+
+
+# ---- robustness ------------------------------------------------------------------------
+
+def test_random_spectra_never_crash_and_statuses_are_valid():
+    # Random line strengths (absorption or emission), velocities, widths, S/N and masked
+    # chunks: every row has a valid status and measured rows carry finite numbers.
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+
+    ids = ("HeI4471", "HeII4541", "SiIII4553", "HeI4388", "HeII4686", "HI4340", "HI4861")
+
+    @settings(max_examples=12, deadline=None, suppress_health_check=list(HealthCheck))
+    @given(ews=st.lists(st.floats(-1.0, 3.0), min_size=len(ids), max_size=len(ids)),
+           v=st.floats(-250, 250), fwhm=st.floats(1.0, 10.0), snr=st.floats(15, 400),
+           gap=st.floats(4300, 4900), seed=st.integers(0, 100))
+    def check(ews, v, fwhm, snr, gap, seed):
+        w = np.arange(4200.0, 5000.0, 0.5)
+        comps = [lambda x, i=i, a=a: a * gauss(x, lam(i) * (1 + v / 299792.458), fwhm)
+                 for i, a in zip(ids, ews)]
+        spec = spectrum_with(comps, w=w, snr=snr, seed=seed)
+        flux = spec.flux.copy()
+        flux[(w > gap) & (w < gap + 15)] = np.nan
+        spec = Spectrum(w, flux, medium="air", meta=ObservationMeta(resolution_fwhm=2.5))
+        t = measure_lines(spec)
+        assert set(t["status"]) <= set(STATUSES)
+        ok = t["status"] == "measured"
+        assert np.all(np.isfinite(t["ew"][ok].value)) and np.all(t["ew_err"][ok].value > 0)
+        assert np.all(np.isfinite(t["rv"][ok].value))
+        assert np.all(np.isnan(t["ew"][t["status"] == "outside range"].value))
+
+    check()
+
+
+def test_unknown_line_id_is_a_config_error():
+    from starlines.errors import ConfigError
+
+    spec = spectrum_with([lambda x: 0.5 * gauss(x, lam("HeI4471"), 2.5)])
+    with pytest.raises(ConfigError, match="unknown line id 'HeI9999'"):
+        measure_lines(spec, lines=["HeI9999"])
