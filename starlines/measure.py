@@ -176,8 +176,8 @@ def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
     p0, prior, free, amp_sigma = _initial(model, g.members, x, yy, ee, fwhm, v0,
                                float(np.mean(cerr[i0:i1])))
     p0[model.amp_index] = np.maximum(p0[model.amp_index], -DETECTION_SIGMA * amp_sigma)
-    bounds = _bounds(model, p0, prior, amp_sigma, float(np.median(np.diff(x))),
-                     model.halfspan)
+    dx = (x[-1] - x[0]) / max(x.size - 1, 1)
+    bounds = _bounds(model, p0, prior, amp_sigma, float(dx), model.halfspan)
     fit = fit_blend(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
                     floor_chi2=floor_chi2)
     if fit.chi2_red > CLIP_CHI2:

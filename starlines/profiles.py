@@ -136,6 +136,9 @@ class BlendModel:
         self._iaw = self._ia[self._wing]
         self._pv = np.eye(self.nv)[self._vg]  # (K, nv) component -> velocity group
         self._pw = np.eye(self.nw)[self._wg]
+        self.nonlinear = np.ones(self.npar, dtype=bool)  # all but baseline and areas
+        self.nonlinear[:2] = False
+        self.nonlinear[self._ia] = False
 
     def evaluate(self, p: np.ndarray, x: np.ndarray, jac: bool = False):
         """Model flux at ``x`` and, if ``jac``, the Jacobian (n_x, n_par)."""
@@ -368,10 +371,7 @@ def fit_blend(
         out[rows, pidx] = pw
         return r, out
 
-    nonlinear = np.ones(p0.size, dtype=bool)
-    nonlinear[:2] = False
-    nonlinear[[i for i, c in zip(model.amp_index, model.components)]] = False
-    linear = not np.any(free & nonlinear)
+    linear = not np.any(free & model.nonlinear)
     lower, upper = (np.full(p0.size, -np.inf), np.full(p0.size, np.inf)) if bounds is None \
         else bounds
     p, r, J = _levenberg_marquardt(fun_jac, p0, np.flatnonzero(free), lower, upper,
