@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["CCFResult", "cross_correlate", "line_template", "rotational_kernel",
-           "log_lambda_grid", "C_KMS"]
+           "log_lambda_grid", "TabulatedTemplate", "tabulate", "C_KMS"]
 
 C_KMS = 299792.458
 
@@ -161,11 +161,51 @@ def line_template(
     return np.maximum(1.0 - np.interp(w, grid, depth), 0.01)
 
 
-def _template_values(template, grid: np.ndarray) -> np.ndarray:
+class TabulatedTemplate:
+    """A template tabulated once: depth ``1 - flux`` on increasing rest wavelengths.
+
+    Evaluated by linear interpolation in ln(lambda); the depth is 0 (continuum) outside the
+    table. Calling it returns the normalized flux, so it can stand wherever a template
+    callable is accepted.
+
+    Parameters
+    ----------
+    wavelength : numpy.ndarray
+        Increasing rest wavelengths (Angstrom), ideally uniform in ln(lambda).
+    depth : numpy.ndarray
+        ``1 - normalized flux`` at those wavelengths.
+    """
+
+    def __init__(self, wavelength, depth):
+        self.wavelength = np.asarray(wavelength, dtype=float)
+        self.lnw = np.log(self.wavelength)
+        self.depth = np.asarray(depth, dtype=float)
+
+    def __call__(self, wavelength) -> np.ndarray:
+        return 1.0 - self.depth_at(wavelength)
+
+    def depth_at(self, wavelength) -> np.ndarray:
+        """Depth at ``wavelength`` (any shape)."""
+        return np.interp(np.log(wavelength), self.lnw, self.depth, left=0.0, right=0.0)
+
+    def shifted(self, wavelength: np.ndarray, velocities) -> np.ndarray:
+        """Depth at ``wavelength`` of the template moved to each velocity: (n_v, n_pix)."""
+        lnw = np.log(wavelength)[None, :] - np.log1p(np.asarray(velocities) / C_KMS)[:, None]
+        return np.interp(lnw.ravel(), self.lnw, self.depth, left=0.0,
+                         right=0.0).reshape(lnw.shape)
+
+
+def tabulate(template, wmin: float, wmax: float, step_kms: float) -> TabulatedTemplate:
+    """A template (callable, ``(wavelength, flux)`` or tabulated) as a
+    :class:`TabulatedTemplate`; a callable is evaluated once on a ln(lambda) grid of
+    ``step_kms`` from ``wmin`` to ``wmax``."""
+    if isinstance(template, TabulatedTemplate):
+        return template
     if callable(template):
-        return np.asarray(template(grid), dtype=float)
+        grid = log_lambda_grid(wmin, wmax, step_kms)
+        return TabulatedTemplate(grid, 1.0 - np.asarray(template(grid), dtype=float))
     tw, tf = template
-    return np.interp(grid, np.asarray(tw, float), np.asarray(tf, float), left=1.0, right=1.0)
+    return TabulatedTemplate(np.asarray(tw, float), 1.0 - np.asarray(tf, float))
 
 
 def _peak_fit(lags: np.ndarray, ccf: np.ndarray, i: int) -> tuple[float, float, float, float]:
@@ -195,7 +235,8 @@ def _peak_fit(lags: np.ndarray, ccf: np.ndarray, i: int) -> tuple[float, float, 
 def cross_correlate(
     wavelength: np.ndarray,
     flux: np.ndarray,
-    template: Callable[[np.ndarray], np.ndarray] | tuple[np.ndarray, np.ndarray],
+    template: TabulatedTemplate | Callable[[np.ndarray], np.ndarray]
+    | tuple[np.ndarray, np.ndarray],
     *,
     noise: float | None = None,
     good: np.ndarray | None = None,
@@ -208,8 +249,10 @@ def cross_correlate(
     ----------
     wavelength, flux : numpy.ndarray
         Spectrum (Angstrom, increasing) normalized to a continuum of 1.
-    template : callable or (wavelength, flux)
-        Normalized template flux at rest; a callable is evaluated at any wavelength.
+    template : TabulatedTemplate, callable or (wavelength, flux)
+        Normalized template flux at rest. A callable is evaluated once, on a ln(lambda)
+        grid of 1/8 pixel (:func:`tabulate`); pass a :class:`TabulatedTemplate` to reuse
+        one template for many spectra.
     noise : float, optional
         Noise per pixel of ``flux`` (used for the CCF noise level); estimated if None.
     good : numpy.ndarray of bool, optional
@@ -229,6 +272,13 @@ def cross_correlate(
     n_pix = int(use.sum())
     if n_pix < 20:
         raise ValueError(f"only {n_pix} usable pixels for the cross-correlation")
+    if noise is None:
+        from starlines.snr import der_snr_noise
+
+        noise = der_snr_noise(np.asarray(flux, float), use)
+    idx = np.flatnonzero(use)  # work on the span of the used pixels only
+    lo, hi = max(idx[0] - 2, 0), min(idx[-1] + 3, w.size)
+    w, depth, use = w[lo:hi], depth[lo:hi], use[lo:hi]
     pix_kms = C_KMS * float(np.median(np.diff(w) / w[1:]))
     step = pix_kms / oversample
     grid = log_lambda_grid(w[0], w[-1], step)
@@ -238,8 +288,10 @@ def cross_correlate(
     x = np.where(weight, x - np.mean(x[weight]), 0.0)
     wt = weight.astype(float)
     k = int(math.ceil(math.log1p(vmax / C_KMS) / dlog))
+    pad = 1.0 + (vmax + 3.0 * step) / C_KMS
+    tmpl = tabulate(template, w[0] / pad, w[-1] * pad, pix_kms / 8.0)
     ext = grid[0] * np.exp(dlog * np.arange(-k, grid.size + k))
-    t = 1.0 - _template_values(template, ext)
+    t = tmpl.depth_at(ext)
     # valid-mode correlations, cc[m] = sum_i x_i t[i + m]; reversed so that index j is the
     # lag j - k (template shifted by j - k steps to the red). The template is centred and
     # normalized over the used pixels of each window: a Pearson coefficient per lag.
@@ -253,12 +305,7 @@ def cross_correlate(
     velocity = C_KMS * np.expm1(lags * dlog)
     i = int(np.argmax(ccf))
     _, _, _, fwhm_lags = _peak_fit(lags, ccf, i)
-    fine = _FineTemplate(template, w[0], w[-1], pix_kms / 8.0, vmax + 3.0 * step)
-    rv, height, curv = _refine_peak(w, depth, use, fine, float(velocity[i]), step)
-    if noise is None:
-        from starlines.snr import der_snr_noise
-
-        noise = der_snr_noise(np.asarray(flux, float), use)
+    rv, height, curv = _refine_peak(w, depth, use, tmpl, float(velocity[i]), step)
     ccf_noise = float(noise) * math.sqrt(oversample) / max(xnorm, 1e-300)
     rv_err = _zucker_error(height, curv, n_pix)
     r = _tonry_davis_r(ccf, i, ccf[i])
@@ -266,22 +313,7 @@ def cross_correlate(
                      n_pix, step)
 
 
-class _FineTemplate:
-    """Template depth tabulated once on a fine ln(lambda) grid, shifted by interpolation."""
-
-    def __init__(self, template, wmin: float, wmax: float, step_kms: float, vpad: float):
-        pad = 1.0 + vpad / C_KMS
-        grid = log_lambda_grid(wmin / pad, wmax * pad, step_kms)
-        self.lng = np.log(grid)
-        self.depth = 1.0 - _template_values(template, grid)
-
-    def shifted(self, wavelength: np.ndarray, velocities: np.ndarray) -> np.ndarray:
-        """Template depth at ``wavelength`` for each velocity: shape (n_v, n_pix)."""
-        lnw = np.log(wavelength)[None, :] - np.log1p(np.asarray(velocities) / C_KMS)[:, None]
-        return np.interp(lnw.ravel(), self.lng, self.depth).reshape(lnw.shape)
-
-
-def pearson_at(wavelength, depth, use, fine: _FineTemplate, velocities) -> np.ndarray:
+def pearson_at(wavelength, depth, use, fine: TabulatedTemplate, velocities) -> np.ndarray:
     """Pearson correlation of data depth and the template shifted to each velocity,
     computed on the spectrum's own pixels (no resampling of the data)."""
     x = depth[use] - np.mean(depth[use])

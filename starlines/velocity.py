@@ -29,6 +29,7 @@ import numpy as np
 
 from starlines.barycentric import C_KMS, apply_correction, frame_correction
 from starlines.errors import VelocityError
+from starlines.rvtemplates import catalogue_template, default_template, resolution_of
 
 __all__ = ["VelocityResult", "measure_velocity", "line_velocities", "combine_velocities",
            "default_template", "catalogue_template", "WIND_LINES"]
@@ -36,7 +37,16 @@ __all__ = ["VelocityResult", "measure_velocity", "line_velocities", "combine_vel
 #: Lines not used for the centroid velocity: formed partly in the stellar wind, or
 #: often filled in by emission in O and Be stars (common practice).
 WIND_LINES = {"HeII4686": "wind line", "HI6563": "wind line", "HI4861": "wind line"}
-#: Error inflation of a line whose catalogue neighbour is also measured.
+#: Of emission complex (N III 4634-42, C III 4647-51, He II 4686): when any of them is in
+#: emission the others are filled in too and are not used (common practice).
+OF_COMPLEX = frozenset({"NIII4634", "NIII4641", "NIII4642", "CIII4647", "CIII4650",
+                        "CIII4651", "HeII4686"})
+#: Fewest usable lines for which unseparated blends are dropped rather than down-weighted.
+MIN_CLEAN_LINES = 5
+#: A line counts as present (for blends) at this significance (sigma).
+MIN_SIGNIFICANCE = 3.0
+#: Error inflation of a line whose catalogue neighbour is also measured, and of Balmer
+#: lines in a star with Balmer emission.
 BLEND_ERROR_FACTOR = 3.0
 #: Rejection threshold of the robust mean, in combined sigma.
 CLIP_NSIGMA = 3.5
@@ -129,14 +139,26 @@ def _col(table, name: str, default=np.nan) -> np.ndarray:
     return np.asarray(getattr(c, "value", c))
 
 
-def line_velocities(table, medium: str, *, path: str = ""):
-    """Per-line velocities and the choice of lines.
+def _detected_kinds(ids, status, emission, signif) -> set[str]:
+    """Kinds of line (``balmer``, ``hei``, ``heii``, ``metal``) seen in absorption."""
+    from starlines.lines import line
 
-    Returns
-    -------
-    (ids, rv, err, reasons)
-        Arrays over the table rows; ``reasons[i]`` is "" for usable lines, else why not.
-    """
+    return {line(i).kind for i, s, e, g in zip(ids, status, emission, signif)
+            if s == "measured" and not e and (not math.isfinite(g) or g >= MIN_SIGNIFICANCE)}
+
+
+def _near_emission(ident: str, medium: str, emitters: list[tuple[float, float]],
+                   fwhm: float) -> bool:
+    """True when the line lies within 2 emission FWHM + 1 line FWHM of an emission line."""
+    from starlines.lines import line
+
+    lam = line(ident).wavelength(medium)
+    own = fwhm if math.isfinite(fwhm) else 2.0
+    return any(0 < abs(lam - lam_e) < 2.0 * fw_e + own for lam_e, fw_e in emitters)
+
+
+def _line_choice(table, medium: str, path: str, *, keep_pulled: bool):
+    """Per-line velocities, errors and reasons (see :func:`line_velocities`)."""
     from starlines.lines import line
 
     ids = [str(x) for x in table["line"]]
@@ -145,23 +167,71 @@ def line_velocities(table, medium: str, *, path: str = ""):
     cerr = _col(table, "centroid_err").astype(float)
     status = [str(s) for s in _col(table, "status", "measured")]
     emission = _col(table, "emission", False).astype(bool)
+    fwhm = _col(table, "fwhm").astype(float)
+    signif = np.abs(_col(table, "significance").astype(float))
     rv = C_KMS * (cen / rest - 1.0)
     err = C_KMS * cerr / rest
     measured = {i for i, s, e in zip(ids, status, emission) if s == "measured" and not e}
-    reasons = []
+    unseparated = {i for i, s in zip(ids, status) if s == "blended"}
+    kinds = _detected_kinds(ids, status, emission, signif)
+    em = [k for k in range(len(ids)) if status[k] == "measured" and emission[k]]
+    emitters = [(line(ids[k]).wavelength(medium), fwhm[k] if math.isfinite(fwhm[k]) else 5.0)
+                for k in em]
+    of_star = any(ids[k] in OF_COMPLEX for k in em)
+    balmer_emission = any(line(ids[k]).kind == "balmer" for k in em)
+    reasons, used = [], {}
     for k, ident in enumerate(ids):
+        ln = line(ident)
+        pulled = [b for b in ln.blends if b in unseparated and line(b).kind in kinds]
+        twin = [b for b in ln.blends if b in used and used[b] == (rv[k], err[k])]
         if status[k] != "measured":
             reasons.append(status[k])
         elif emission[k]:
             reasons.append("emission")
         elif ident in WIND_LINES:
             reasons.append(WIND_LINES[ident])
+        elif of_star and ident in OF_COMPLEX:
+            reasons.append("Of emission complex")
+        elif _near_emission(ident, medium, emitters, fwhm[k]):
+            reasons.append("near an emission line")
+        elif pulled and keep_pulled is False:
+            reasons.append(f"blended with {pulled[0]} (not separated)")
         elif not (np.isfinite(rv[k]) and np.isfinite(err[k]) and err[k] > 0):
             reasons.append("no centroid error")
+        elif twin:
+            reasons.append(f"same fit as {twin[0]}")
         else:
             reasons.append("")
-            if any(b in measured for b in line(ident).blends):
+            used[ident] = (rv[k], err[k])
+            if any(b in measured for b in ln.blends) or pulled or (
+                    balmer_emission and ln.kind == "balmer"):
                 err[k] *= BLEND_ERROR_FACTOR
+    return ids, rv, err, reasons
+
+
+def line_velocities(table, medium: str, *, path: str = ""):
+    """Per-line velocities and the choice of lines.
+
+    A line is not used when it is not ``measured``, in emission, a wind line
+    (:data:`WIND_LINES`), in the Of emission complex of a star showing emission there
+    (:data:`OF_COMPLEX`), within two emission FWHM of a line in emission, blended with a
+    catalogue neighbour that the fit did not separate (status ``blended``) when that
+    neighbour's kind of line is present in the star (e.g. the He II Pickering lines on the
+    blue side of H-delta/H-gamma/H-epsilon in O stars, which pull the Balmer centroids by
+    up to ~40 km/s), or fitted together with an already used neighbour (same centroid).
+    Lines with a measured neighbour, and Balmer lines of a star with Balmer emission, get
+    :data:`BLEND_ERROR_FACTOR` times their error. When fewer than :data:`MIN_CLEAN_LINES`
+    lines would remain (coarse spectra, where the Balmer lines carry the velocity), the
+    unseparated blends are kept with that larger error instead.
+
+    Returns
+    -------
+    (ids, rv, err, reasons)
+        Arrays over the table rows; ``reasons[i]`` is "" for usable lines, else why not.
+    """
+    ids, rv, err, reasons = _line_choice(table, medium, path, keep_pulled=False)
+    if sum(r == "" for r in reasons) < MIN_CLEAN_LINES:
+        ids, rv, err, reasons = _line_choice(table, medium, path, keep_pulled=True)
     return ids, rv, err, reasons
 
 
@@ -195,81 +265,6 @@ def combine_velocities(rv: np.ndarray, err: np.ndarray, *, nsigma: float = CLIP_
     return mean, mean_err, keep
 
 
-def default_template(spec, table, classification=None, *, vsini: float = math.nan):
-    """Template callable (rest frame, normalized flux) for the cross-correlation.
-
-    A synthetic spectrum at the classified parameters when :mod:`starlines.synth` and a
-    classification are available; otherwise lines at the catalogue wavelengths with the
-    depths and widths measured in ``table`` (Lorentzian Balmer lines, Gaussian others).
-    Returns (callable, description).
-    """
-    res = spec.meta.resolution_fwhm or float(table.meta.get("resolution_fwhm", 0) or 0) or (
-        2.5 * float(np.median(np.diff(spec.wavelength))))
-    vs = vsini if math.isfinite(vsini) else float(table.meta.get("vsini", 0) or 0)
-    vs = vs if math.isfinite(vs) else 0.0
-    teff = getattr(classification, "teff", math.nan)
-    if classification is not None and math.isfinite(teff):
-        try:
-            from starlines.synth import synthetic_spectrum
-        except ImportError:
-            synthetic_spectrum = None
-        if synthetic_spectrum is not None:
-            kw = dict(teff=teff, logg=_finite_or(classification.logg, 4.0),
-                      he=_finite_or(classification.he_abundance, 0.1), vsini=vs, rv=0.0,
-                      resolution_fwhm=res, medium=spec.medium)
-            return (lambda w: synthetic_spectrum(w, **kw),
-                    f"synthetic spectrum Teff {teff:.0f} K")
-    return _table_template(spec, table, res), "lines at catalogue wavelengths, measured depths"
-
-
-def _finite_or(x, default: float) -> float:
-    try:
-        return float(x) if math.isfinite(float(x)) else default
-    except (TypeError, ValueError):
-        return default
-
-
-def _table_template(spec, table, res: float):
-    from starlines.ccf import line_template
-    from starlines.lines import line
-
-    ids = [str(x) for x in table["line"]] if "line" in table.colnames else []
-    status = [str(s) for s in _col(table, "status", "")]
-    depth, fwhm = _col(table, "depth"), _col(table, "fwhm")
-    ew = _col(table, "ew")
-    cen, dep, fw, shp = [], [], [], []
-    for k, ident in enumerate(ids):
-        d = depth[k] if math.isfinite(depth[k]) else ew[k] / (1.0645 * fwhm[k])
-        if status[k] == "measured" and math.isfinite(d) and d > 0 and fwhm[k] > 0:
-            ln = line(ident)
-            cen.append(ln.wavelength(spec.medium))
-            dep.append(min(float(d), 0.9))
-            fw.append(float(fwhm[k]))
-            shp.append("lorentzian" if ln.kind == "balmer" else "gaussian")
-    if len(cen) < 2:  # nothing measured: generic hot-star lines
-        return catalogue_template(spec, res)
-    return lambda w: line_template(w, cen, dep, fw, shapes=shp)
-
-
-def catalogue_template(spec, resolution_fwhm: float):
-    """Generic hot-star template: every catalogue line in range, Balmer lines 0.3 deep and
-    10 A wide (Lorentzian), others 0.08 deep (rough, common practice), at the instrumental
-    resolution. The same for any spectrum of a given medium and resolution."""
-    from starlines.ccf import line_template
-    from starlines.lines import lines_in_range
-
-    w = spec.wavelength
-    cen, dep, fw, shp = [], [], [], []
-    for ln in lines_in_range(w[0] - 50, w[-1] + 50, medium=spec.medium):
-        balmer = ln.kind == "balmer"
-        cen.append(ln.wavelength(spec.medium))
-        dep.append(0.3 if balmer else 0.08)
-        fw.append(10.0 if balmer else 1.0)
-        shp.append("lorentzian" if balmer else "gaussian")
-    return lambda x: line_template(x, cen, dep, fw, shapes=shp,
-                                   resolution_fwhm=resolution_fwhm)
-
-
 def _normalized(spec, continuum):
     """Normalized flux, usable pixels and noise per pixel of the normalized flux."""
     from starlines.snr import der_snr_noise
@@ -300,15 +295,27 @@ def _as_template(template, spec):
 
 #: Hot-star line region used by the CCF when the spectrum covers enough of it (Angstrom).
 CCF_REGION = (3850.0, 5050.0)
+#: Lines dropped from the centroid mean for these reasons are masked in the CCF too,
+#: over +-CCF_EXCLUDE_FWHM times their FWHM.
+_CCF_EXCLUDED = ("blended with", "Of emission complex", "near an emission line")
+CCF_EXCLUDE_FWHM = 2.5
+#: Coarser than this instrumental FWHM (Angstrom) the He and metal lines are washed out
+#: and the Balmer lines carry the CCF: their Pickering blends stay in (a pull of < 40 km/s
+#: against a precision of 30-100 km/s at 15 A, tests/test_velocity.py, Jacoby spectra).
+CCF_BLEND_MASK_MAX_RESOLUTION = 5.0
 #: Features not at the star's velocity: interstellar Ca II K, DIBs 4428/5780/5797/6284,
 #: Na D, telluric O2 bands (wavelengths from memory; half-widths generous).
 FOREIGN_BANDS = ((3928.0, 3940.0), (4410.0, 4450.0), (5770.0, 5805.0), (5885.0, 5900.0),
                  (6270.0, 6300.0), (6860.0, 6960.0), (7160.0, 7340.0), (7590.0, 7700.0))
 
 
-def _ccf_mask(spec, table, good) -> np.ndarray:
+def _ccf_mask(spec, table, good, rejected: dict[str, str] | None = None,
+              resolution: float = 0.0) -> np.ndarray:
     """Usable pixels for the CCF: the hot-star region when covered, without interstellar
-    and telluric features, wind lines and lines measured in emission."""
+    and telluric features, wind lines, lines in or near emission, and lines the centroid
+    choice dropped as pulled by an unseparated blend (``rejected``: line id -> reason;
+    only when ``resolution``, the instrumental FWHM in Angstrom, is at most
+    :data:`CCF_BLEND_MASK_MAX_RESOLUTION`)."""
     from starlines.lines import line
 
     w, use = spec.wavelength, good.copy()
@@ -324,9 +331,13 @@ def _ccf_mask(spec, table, good) -> np.ndarray:
         use &= np.abs(w - lam) > 25.0
     em = _col(table, "emission", False).astype(bool)
     fwhm = _col(table, "fwhm")
+    rejected = rejected or {}
+    excluded = _CCF_EXCLUDED if resolution <= CCF_BLEND_MASK_MAX_RESOLUTION else \
+        _CCF_EXCLUDED[1:]
     for ident, e, fw in zip(table["line"], em, fwhm):
-        if e:
-            half = 2.0 * (fw if math.isfinite(fw) else 5.0)
+        why = rejected.get(str(ident), "")
+        if e or why.startswith(excluded):
+            half = CCF_EXCLUDE_FWHM * (fw if math.isfinite(fw) else 5.0)
             use &= np.abs(w - line(str(ident)).wavelength(spec.medium)) > half
     return use
 
@@ -411,7 +422,8 @@ def _cross_correlation(out, spec, table, classification, template, continuum,
     else:
         tmpl, desc = _as_template(template, spec), "caller's template"
     res = cross_correlate(spec.wavelength, norm, tmpl, noise=noise,
-                          good=_ccf_mask(spec, table, good))
+                          good=_ccf_mask(spec, table, good, out.lines_rejected,
+                                         resolution_of(spec, table)))
     out.rv_ccf, out.rv_ccf_err = res.rv, res.rv_err
     out.notes.append(f"CCF template: {desc}; peak {res.height:.3f}, "
                      f"Tonry-Davis r {res.tonry_davis_r:.1f}")
