@@ -33,8 +33,8 @@ import numpy as np
 from scipy.interpolate import BSpline
 
 from starlines.errors import MeasurementError
+from starlines.fitting import fit_single_line
 from starlines.lines import Line, lines_in_range
-from starlines.profiles import fit_single_line
 from starlines.snr import der_snr_noise
 from starlines.spectrum import Spectrum
 

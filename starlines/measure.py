@@ -29,14 +29,13 @@ import numpy as np
 from starlines.blends import FitGroup, PlannedLine, plan_lines
 from starlines.continuum import ContinuumFit, fit_continuum
 from starlines.errors import ConfigError, MeasurementError
+from starlines.fitting import BlendFit, fit_blend
 from starlines.lines import Line, line, lines_in_range
 from starlines.profiles import (
     C_KMS,
     FWHM_PER_SIGMA,
-    BlendFit,
     BlendModel,
     Component,
-    fit_blend,
     gaussian,
     lorentz_fraction,
     lorentzian,
