@@ -1,11 +1,18 @@
 """Barycentric velocity correction from the observation metadata, offline.
 
-The correction is astropy's
-``SkyCoord.radial_velocity_correction(kind="barycentric", obstime=..., location=...)``
-for the mid-exposure UTC time, the ICRS position of the target and the observatory site
-(see :mod:`starlines.sites`). It is combined with a measured topocentric velocity as
-``v_bary = v_topo + v_corr + v_topo * v_corr / c`` (astropy documentation of
-``radial_velocity_correction``).
+The correction follows astropy's
+``SkyCoord.radial_velocity_correction(kind="barycentric", obstime=..., location=...)``:
+``z_b = gamma (1 + beta . n) / (1 + Phi / c^2)`` (Wright & Eastman 2014, eq. 28, as
+implemented by astropy), with ``beta`` the observer's barycentric velocity over c (Earth's,
+from ``get_body_barycentric_posvel``, plus the site's GCRS velocity), ``n`` the ICRS
+direction of the target and ``Phi`` the gravitational potential at the site
+(``EarthLocation.gravitational_redshift``). Astropy spends 5-15 ms per call on frame
+machinery, so the observer's ``beta`` and ``Phi`` are computed in one vectorised astropy
+call on hourly nodes of each UTC day per site (cached), and interpolated with a cubic
+spline: the interpolation error is < 0.1 m/s (diurnal term 0.47 km/s, error ~ 5/384
+(2 pi h / 1 d)^4 of it). ``exact=True`` calls astropy directly.
+A measured topocentric velocity is combined as ``v_bary = v_topo + v_corr + v_topo * v_corr
+/ c`` (astropy documentation of ``radial_velocity_correction``).
 
 Spectra whose wavelengths are already barycentric or heliocentric (``meta.frame``) are not
 corrected again. When anything is missing the velocity stays topocentric, with a flag and
@@ -18,6 +25,9 @@ import math
 import os
 import warnings
 from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
 
 from starlines.offline import configure_astropy_offline, iers_prediction_end_mjd
 from starlines.sites import location_from_meta
@@ -56,7 +66,8 @@ class FrameCorrection:
     flags: list[str] = field(default_factory=list)
 
 
-def barycentric_correction(ra_deg: float, dec_deg: float, mjd_utc: float, location) -> float:
+def barycentric_correction(ra_deg: float, dec_deg: float, mjd_utc: float, location, *,
+                           exact: bool = False) -> float:
     """Barycentric radial-velocity correction in km/s (astropy, offline).
 
     Parameters
@@ -67,13 +78,61 @@ def barycentric_correction(ra_deg: float, dec_deg: float, mjd_utc: float, locati
         UTC Modified Julian Date of mid-exposure.
     location : astropy.coordinates.EarthLocation
         Observatory.
+    exact : bool
+        Call ``SkyCoord.radial_velocity_correction`` itself instead of interpolating the
+        cached observer velocities (same formula; ~10 ms instead of ~0.05 ms).
 
     Returns
     -------
     float
         Correction in km/s, to be combined with :func:`apply_correction`.
     """
+    import astropy.units as u
+
     configure_astropy_offline()
+    if exact:
+        return _astropy_correction(ra_deg, dec_deg, mjd_utc, location)
+    x, y, z = (float(q.to_value(u.m)) for q in location.to_geocentric())
+    day = math.floor(mjd_utc)
+    spline_beta, spline_phi = _observer_day(x, y, z, day)
+    beta = spline_beta(mjd_utc - day)
+    phi_c = float(spline_phi(mjd_utc - day))
+    r, d = math.radians(ra_deg), math.radians(dec_deg)
+    n = (math.cos(d) * math.cos(r), math.cos(d) * math.sin(r), math.sin(d))
+    gamma = 1.0 / math.sqrt(1.0 - float(beta @ beta))
+    zb = gamma * (1.0 + float(beta @ np.array(n))) / (1.0 + phi_c)
+    return (zb - 1.0) * C_KMS
+
+
+#: Node spacing (days) and span of the cached observer velocities per UTC day.
+_NODE_STEP_D = 1.0 / 24.0
+_NODE_PAD_D = 3.0 / 24.0
+
+
+@lru_cache(maxsize=64)
+def _observer_day(x_m: float, y_m: float, z_m: float, day: int):
+    """Cubic splines (in days since ``day``) of the observer's barycentric beta (3-vector)
+    and of Phi / c^2 at a geocentric site, over one UTC day plus margins."""
+    import astropy.units as u
+    from astropy.constants import c
+    from astropy.coordinates import EarthLocation, get_body_barycentric_posvel
+    from astropy.time import Time
+    from scipy.interpolate import CubicSpline
+
+    loc = EarthLocation.from_geocentric(x_m * u.m, y_m * u.m, z_m * u.m)
+    t_rel = np.arange(-_NODE_PAD_D, 1.0 + _NODE_PAD_D + 1e-9, _NODE_STEP_D)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # dates past the IERS table: see frame_correction
+        t = Time(day + t_rel, format="mjd", scale="utc")
+        _, v_earth = get_body_barycentric_posvel("earth", t)
+        _, v_site = loc.get_gcrs_posvel(t)
+        phi = loc.gravitational_redshift(t)
+    beta = ((v_earth + v_site).xyz / c).to_value(u.dimensionless_unscaled).T
+    phi_c = (phi / c).to_value(u.dimensionless_unscaled)
+    return CubicSpline(t_rel, beta, axis=0), CubicSpline(t_rel, phi_c)
+
+
+def _astropy_correction(ra_deg: float, dec_deg: float, mjd_utc: float, location) -> float:
     import astropy.units as u
     from astropy.coordinates import SkyCoord
     from astropy.time import Time
