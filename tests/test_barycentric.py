@@ -115,7 +115,7 @@ def test_user_site_config(tmp_path):
 @pytest.mark.parametrize("site", ["lasilla", "maunakea", "kpno"])
 def test_interpolated_matches_astropy_radial_velocity_correction(site):
     """The cached hourly-node spline reproduces astropy's own
-    SkyCoord.radial_velocity_correction (the reference library) to 1 mm/s at random
+    SkyCoord.radial_velocity_correction (the reference library) to 1 cm/s at random
     times (2015-2030, incl. past the IERS predictions), positions and sites."""
     from starlines.offline import configure_astropy_offline
 
@@ -127,4 +127,4 @@ def test_interpolated_matches_astropy_radial_velocity_correction(site):
         mjd = rng.uniform(57000, 64000)
         fast = barycentric_correction(ra, dec, mjd, loc)
         assert fast == pytest.approx(barycentric_correction(ra, dec, mjd, loc, exact=True),
-                                     abs=1e-6)  # km/s
+                                     abs=1e-5)  # km/s
