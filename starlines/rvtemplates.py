@@ -28,11 +28,14 @@ from starlines.ccf import C_KMS, TabulatedTemplate, line_template, log_lambda_gr
 __all__ = ["default_template", "catalogue_template", "synthetic_template", "type_key",
            "TEFF_STEP", "LOGG_STEP", "HE_STEP"]
 
-#: Rounding of the synthetic template's parameters (one template per type): 1000 K is
-#: about one O subtype (Martins et al. 2005 scale, ~1500 K per subtype at O5-O9.5).
-TEFF_STEP = 1000.0
-LOGG_STEP = 0.25
-HE_STEP = 0.05
+#: Rounding of the synthetic template's parameters (one template per type bin): 2000 K is
+#: about one O subtype (Martins et al. 2005 scale: ~1500 K per subtype at O5-O9.5), so the
+#: template is never more than ~half a subtype off; log g and He/H change line strengths
+#: more than positions. A new bin costs ~30 ms once per process (the model's line
+#: formation); on the 33 spectra of the demo night 16 bins occur.
+TEFF_STEP = 2000.0
+LOGG_STEP = 0.5
+HE_STEP = 0.1
 #: Step (km/s) of the template's ln(lambda) grid: the synthetic model's own step.
 TEMPLATE_STEP_KMS = 2.0
 #: Padding (km/s) of the template beyond the spectrum, for the lags and the kernels.

@@ -428,16 +428,25 @@ def _cross_correlation(out, spec, table, classification, template, continuum,
     out.notes.append(f"CCF template: {desc}; peak {res.height:.3f}, "
                      f"Tonry-Davis r {res.tonry_davis_r:.1f}")
     if detect_binary:
-        resol = spec.meta.resolution_fwhm or float(table.meta.get("resolution_fwhm", 0) or 0)
-        resol = resol or 2.5 * float(np.median(np.diff(spec.wavelength)))
         rest = {k: line(k).wavelength(spec.medium) for k in CCF_LINES}
+        vsini = table.meta.get("vsini", math.nan) if hasattr(table, "meta") else math.nan
         sb2 = detect_sb2(spec.wavelength, norm, good, noise=noise, rest=rest,
-                         resolution_fwhm=resol, v_guess=res.rv)
+                         resolution_fwhm=resolution_of(spec, table), v_guess=res.rv,
+                         vsini=_finite(vsini))
+        if sb2.evidence:
+            out.notes.append("SB2 evidence: " + "; ".join(sb2.evidence))
         out.notes += sb2.notes
         if sb2.sb2:
             out.sb2, out.rv_components = True, list(sb2.velocities)
             out.flags.append("double-lined")
     return res.rv
+
+
+def _finite(x) -> float:
+    try:
+        return float(x) if x is not None and math.isfinite(float(x)) else math.nan
+    except (TypeError, ValueError):
+        return math.nan
 
 
 def _to_frame(out: VelocityResult, spec, site, site_config) -> None:
