@@ -145,6 +145,15 @@ FLAGS: tuple[Flag, ...] = (
          "the archive's variability test rejects a constant velocity", 4.0, "night"),
     Flag("low-snr", f"S/N per pixel below {LOW_SNR:g}",
          f"continuum S/N < {LOW_SNR:g}: weak-line ratios and types are unreliable", 0.0),
+    Flag("rv-topocentric", "velocity NOT corrected to the barycentre (topocentric)",
+         "mid-exposure time, RA/Dec or observatory site missing, so rv and rv_ccf are "
+         "topocentric: up to +-30 km/s off (give the site with --site)", 0.0),
+    Flag("medium-assumed", "air/vacuum wavelengths assumed, not stated in the file",
+         "the reader assumed the wavelength medium; the other medium would shift every "
+         "velocity by ~84 km/s at 4500 A", 0.0),
+    Flag("few-rv-lines", "velocity from fewer than 3 line centroids",
+         "fewer than 3 lines survived the line choice and clipping of the centroid "
+         "velocity: rv rests on one or two lines (rv_ccf may be better)", 0.0),
     Flag("not-hot-star", "no helium lines: later than about B3, or not a star",
          f"no He I or He II absorption line detected at >= {MIN_SIGNIFICANCE:g} sigma, "
          "or the classifier could not place the spectrum", 0.0),

@@ -77,11 +77,17 @@ class AnalysisOptions:
         Force the wavelength medium instead of reading it from the file.
     default_medium : {"air", "vacuum"}
         Medium assumed when a file does not state it.
+    site : str or None
+        Observatory of every spectrum for the barycentric correction (overrides headers).
+    site_config : str or None
+        User TOML file of extra sites (:mod:`starlines.sites`).
     """
 
     figure_dir: str | None = None
     medium: str | None = None
     default_medium: str = "air"
+    site: str | None = None
+    site_config: str | None = None
 
 
 @dataclass
@@ -262,7 +268,9 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
     except Exception as exc:  # noqa: BLE001
         notes.append(f"classification: {one_line(exc)}")
     try:
-        velocity = measure_velocity(spec, table, classification=classification)
+        velocity = measure_velocity(spec, table, classification=classification,
+                                    continuum=getattr(measurement, "continuum", None),
+                                    site=options.site, site_config=options.site_config)
         _update(row, velocity.as_row())
         stage_flags += list(getattr(velocity, "flags", []) or [])
     except Exception as exc:  # noqa: BLE001

@@ -301,6 +301,8 @@ def triage_night(
     formats: Sequence[str] = ("ecsv",),
     progress: bool = True,
     report: bool = True,
+    site: str | None = None,
+    site_config: str | os.PathLike | None = None,
 ) -> TriageResult:
     """Triage a night folder; see the module docstring for outputs and resume.
 
@@ -328,6 +330,10 @@ def triage_night(
         Progress bar on a terminal.
     report : bool
         Write ``report.html``.
+    site : str, optional
+        Observatory of every spectrum for the barycentric correction (overrides headers).
+    site_config : str or path-like, optional
+        User TOML file with extra ``[sites.<name>]`` entries.
 
     Returns
     -------
@@ -337,6 +343,11 @@ def triage_night(
     from starlines.followup import rank_rows
 
     formats = _check_formats(formats)
+    site_config = os.fspath(site_config) if site_config else None
+    if site:
+        from starlines.sites import find_site
+
+        find_site(site, config=site_config)  # an unknown site fails before any work
     night_dir = os.path.abspath(os.fspath(night_dir))
     out_dir = os.path.abspath(os.fspath(out_dir) if out_dir else os.path.join(night_dir,
                                                                                "triage"))
@@ -360,7 +371,8 @@ def triage_night(
              len(paths), len(records), len(todo), len(ignored))
     if todo:
         records.update(_analyse_all(
-            todo, AnalysisOptions(figure_dir=figure_dir), workers=workers,
+            todo, AnalysisOptions(figure_dir=figure_dir, site=site, site_config=site_config),
+            workers=workers,
             scheduler=scheduler, scheduler_file=scheduler_file, progress=progress,
             journal=journal))
     rows, lines, line_units = [], [], {}

@@ -29,6 +29,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                       help="run on a Dask cluster at this scheduler address")
     dask.add_argument("--scheduler-file", metavar="FILE",
                       help="run on the Dask cluster described by this scheduler file")
+    parser.add_argument("--site", metavar="NAME",
+                        help="observatory of all spectra for the barycentric correction "
+                             "(overrides the file headers)")
+    parser.add_argument("--site-config", metavar="FILE",
+                        help="TOML file with extra [sites.<name>] entries")
     parser.add_argument("--format", default="ecsv", metavar="LIST",
                         help="table formats, comma-separated: ecsv, csv, fits "
                              "(default: ecsv)")
@@ -45,7 +50,8 @@ def run(args: argparse.Namespace) -> int:
         args.night_dir, args.out, targets=args.targets, workers=args.workers,
         figures=not args.no_figures, archive=args.archive, redo=args.redo,
         scheduler=args.scheduler, scheduler_file=args.scheduler_file,
-        formats=args.format.split(","), progress=not quiet,
+        formats=args.format.split(","), progress=not quiet, site=args.site,
+        site_config=args.site_config,
     )
     print(f"{len(result.rows)} spectra ({result.analysed} files analysed, {result.reused} "
           f"reused), {result.n_failed} failed, {len(result.followup)} for follow-up")
