@@ -5,8 +5,9 @@ the primary HDU with a linear WCS (``CTYPE1 = 'AWAV'``), a *flat* continuum of 1
 and Gaussian noise at S/N 100-300. Line profiles come from
 :func:`starlines.synth.synthetic_spectrum` (O4-B2, luminosity class V or III,
 v sin i 0-250 km/s, RV -100..+100 km/s, instrumental FWHM 2.0-2.6 Angstrom). The header
-carries a mid-exposure time, coordinates and a site so that the velocity stage does its
-full barycentric work. Invented data, for benchmarking only.
+carries the start of the exposure (all on one night, as in a real night's folder),
+coordinates and a site so that the velocity stage does its full barycentric work.
+Invented data, for benchmarking only.
 
 The true equivalent widths of each spectrum (:func:`starlines.synth.synthetic_ews` of its
 model parameters, before rotation and instrument, which preserve EW) are written to
@@ -64,6 +65,11 @@ def _header(i: int, params: dict, xyz):
     return h
 
 
+def _night_time(i: int) -> str:
+    minutes = 30 + 3 * (i % 160)
+    return f"2025-03-14T{minutes // 60:02d}:{minutes % 60:02d}:{(7 * i) % 60:02d}"
+
+
 def draw_parameters(n: int, seed: int = SEED) -> list[dict]:
     """Model parameters of ``n`` benchmark spectra (deterministic for a seed)."""
     from starlines.synth import parameters_for_type
@@ -78,7 +84,8 @@ def draw_parameters(n: int, seed: int = SEED) -> list[dict]:
             "vsini": float(rng.uniform(0, 250)), "rv": float(rng.uniform(-100, 100)),
             "fwhm": float(rng.uniform(2.0, 2.6)), "snr": float(rng.uniform(100, 300)),
             "ra": float(rng.uniform(0, 360)), "dec": float(rng.uniform(-80, 20)),
-            "date_obs": f"2025-03-{1 + i % 28:02d}T{2 + i % 7:02d}:{i % 60:02d}:00",
+            # one night, an exposure every 3 minutes from 00:30 UT (wraps after 8 h)
+            "date_obs": _night_time(i),
             "noise_seed": int(rng.integers(2**31)),
         })
     return out
