@@ -89,22 +89,21 @@ def _mark_range_and_mask(pl: PlannedLine, w: np.ndarray, good: np.ndarray) -> No
         pl.status = "masked"
 
 
-def _resolvable(a: PlannedLine, b: PlannedLine) -> bool:
+def _resolvable(a: PlannedLine, b: PlannedLine, fwhm: float) -> bool:
     sep = abs(a.rest - b.rest)
     kinds = {a.line.kind, b.line.kind}
-    if kinds == {"balmer", "heii"}:
-        narrow = a.fwhm if a.line.kind == "heii" else b.fwhm
-        return sep >= BALMER_SEPARATION_FACTOR * narrow
+    if kinds == {"balmer", "heii"}:  # judged on instrument + rotation ("resolution allows")
+        return sep >= BALMER_SEPARATION_FACTOR * fwhm
     if "balmer" in kinds:
         return sep >= SEPARATION_FACTOR * min(a.fwhm, b.fwhm)
     return sep >= SEPARATION_FACTOR * min(a.fwhm, b.fwhm)
 
 
-def _merge_unresolved(active: list[PlannedLine]) -> list[PlannedLine]:
+def _merge_unresolved(active: list[PlannedLine], fwhm: float) -> list[PlannedLine]:
     """Fold unresolved neighbours into the primary line; return the lines left to fit."""
     keep: list[PlannedLine] = []
     for pl in sorted(active, key=lambda p: p.rest):
-        partner = next((k for k in keep[-4:] if not _resolvable(k, pl)), None)
+        partner = next((k for k in keep[-4:] if not _resolvable(k, pl, fwhm)), None)
         if partner is None:
             keep.append(pl)
             continue
@@ -199,7 +198,7 @@ def plan_lines(
     for pl in planned:
         _mark_range_and_mask(pl, w, good)
     active = [p for p in planned if not p.status]
-    fit = _merge_unresolved(active)
+    fit = _merge_unresolved(active, fwhm)
     groups = []
     for members in _groups(fit):
         lo = max(min(p.obs - p.halfwidth for p in members), float(w[0]))

@@ -45,7 +45,7 @@ __all__ = ["ContinuumFit", "fit_continuum", "line_windows", "expected_fwhm", "BA
 BALMER_HALFWIDTH = {3: 60.0, 4: 60.0, 5: 60.0, 6: 50.0, 7: 30.0, 8: 18.0, 9: 14.0}
 #: Typical intrinsic (Stark + thermal) FWHM in Angstrom added in quadrature to the measured
 #: line width for each kind of line (common practice, rough).
-INTRINSIC_FWHM = {"hei": 0.8, "heii": 2.0, "metal": 0.3, "balmer": 6.0}
+INTRINSIC_FWHM = {"hei": 0.8, "heii": 3.5, "metal": 0.3, "balmer": 6.0}
 #: Distance (Angstrom) from the nearest continuum pixel over which the interpolation error
 #: of the continuum grows by one ``scatter``.
 GAP_SCALE = 30.0

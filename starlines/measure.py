@@ -65,6 +65,10 @@ EMISSION_PRONE = ("HI", "HeII4686", "NIII", "CIII", "SiIV", "HeI5876", "HeI6678"
 #: Largest Lorentzian half-width (Angstrom) of a Balmer wing: Stark widths of B dwarfs are a
 #: few Angstrom (common practice); broader "wings" would only absorb continuum errors.
 MAX_LORENTZ_HWHM = 12.0
+#: He lines measured at least this many sigma get a Lorentzian (Stark) wing besides the
+#: Gaussian core; weaker ones are pure Gaussians (common practice: diffuse He I and the
+#: He II lines have pressure-broadened wings that a Gaussian misses).
+WING_SIGNIFICANCE = 30.0
 #: He I lines tried, in order, for v sin i.
 VSINI_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026")
 
@@ -93,20 +97,22 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
     for k, (c, pl) in enumerate(zip(model.components, members)):
         iv, iw = 2 + c.vgroup, 2 + model.nv + c.wgroup
         p[iv] = v0
-        if c.shape == "wing":
+        ia = model.amp_index[k]
+        if pl.line.kind == "balmer":
             prior[iv] = 100.0
             p[iw], prior[iw] = np.log(np.hypot(fwhm, 3.0) / FWHM_PER_SIGMA), 1.0
-            ia = model.amp_index[k]
             p[ia + 2], prior[ia + 2] = np.log(2.5), 1.0
         else:
             prior[iv] = max(30.0, 0.25 * C_KMS * pl.fwhm / pl.rest)
             p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.35
+            if c.shape == "wing":  # Stark wings of a strong He line
+                p[ia + 2], prior[ia + 2] = np.log(0.4 * pl.fwhm), 1.0
     cols = []
-    for c in model.components:
+    for c, ia in zip(model.components, model.amp_index):
         mu = c.rest * (1.0 + v0 / C_KMS)
         cols.append(gaussian(x, mu, np.exp(p[2 + model.nv + c.wgroup])))
         if c.shape == "wing":
-            cols.append(lorentzian(x, mu, 2.5))
+            cols.append(lorentzian(x, mu, np.exp(p[ia + 2])))
     X = np.column_stack([np.ones_like(x), (x - model.xmid) / model.halfspan, *[-q for q in cols]])
     try:
         inv = np.linalg.inv(X.T @ X)
@@ -165,15 +171,27 @@ def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
     i0, i1 = np.searchsorted(w, [g.lo, g.hi])
     m = good[i0:i1]
     x, yy, ee = w[i0:i1][m], y[i0:i1][m], e[i0:i1][m]
-    comps = [
-        Component(pl.line.id, pl.rest, "wing" if pl.line.kind == "balmer" else "gauss", vg, wg)
-        for pl, vg, wg in zip(g.members, g.vgroup, g.wgroup)
-    ]
-    model = BlendModel(comps, 0.5 * (g.lo + g.hi), 0.5 * (g.hi - g.lo))
-    if x.size < model.npar + 3:
-        return None, x
-    p0, prior, free, amp_sigma = _initial(model, g.members, x, yy, ee, fwhm, v0,
-                               float(np.mean(cerr[i0:i1])))
+    cmean = float(np.mean(cerr[i0:i1]))
+    # He lines on a Balmer wing stay Gaussian: their own wings would trade against it
+    on_balmer = any(pl.line.kind == "balmer" for pl in g.members)
+    shapes = ["wing" if pl.line.kind == "balmer"
+              or (pl.line.kind in ("hei", "heii") and not on_balmer) else "gauss"
+              for pl in g.members]
+    for attempt in (0, 1):
+        comps = [Component(pl.line.id, pl.rest, sh, vg, wg)
+                 for pl, sh, vg, wg in zip(g.members, shapes, g.vgroup, g.wgroup)]
+        model = BlendModel(comps, 0.5 * (g.lo + g.hi), 0.5 * (g.hi - g.lo))
+        if x.size < model.npar + 3:
+            return None, x
+        p0, prior, free, amp_sigma = _initial(model, g.members, x, yy, ee, fwhm, v0, cmean)
+        # He lines keep a Lorentzian wing only when strong enough to constrain it
+        weak = [k for k, pl in enumerate(g.members) if shapes[k] == "wing"
+                and pl.line.kind != "balmer"
+                and abs(p0[model.amp_index[k]]) < WING_SIGNIFICANCE * amp_sigma[k]]
+        if attempt or not weak:
+            break
+        for k in weak:
+            shapes[k] = "gauss"
     p0[model.amp_index] = np.maximum(p0[model.amp_index], -DETECTION_SIGMA * amp_sigma)
     dx = (x[-1] - x[0]) / max(x.size - 1, 1)
     bounds = _bounds(model, p0, prior, amp_sigma, float(dx), model.halfspan)

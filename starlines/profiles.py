@@ -50,7 +50,7 @@ Shape = Literal["gauss", "wing"]
 
 def lorentz_fraction(q):
     """Lorentzian share of a ``"wing"`` component from its logit parameter ``q``."""
-    return 1.0 / (1.0 + np.exp(-q))
+    return 1.0 / (1.0 + np.exp(-np.clip(q, -50.0, 50.0)))
 
 
 def gaussian(x: np.ndarray, mu: float, sigma: float) -> np.ndarray:
