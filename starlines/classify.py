@@ -138,12 +138,12 @@ def rules_subtype(values: dict[str, LineValue], secondary=None) -> tuple[float, 
 
 
 def _model_estimate(values, model):
-    from starlines.knn import TARGETS, feature_vector
+    from starlines.knn import TARGETS, feature_limits, feature_vector
 
     x = feature_vector(values)
     if not np.isfinite(x).any():
         return None
-    val, err, proba = model.predict_all(x[None, :])
+    val, err, proba = model.predict_all(x[None, :], feature_limits(values)[None, :])
     proba = proba[0]
     out = {t: (float(val[0, i]), float(err[0, i])) for i, t in enumerate(TARGETS)}
     out["proba"] = (model.classes_.astype(float), proba)

@@ -14,6 +14,7 @@ The default model is fitted once per process, lazily (:func:`default_model`).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 from functools import lru_cache
@@ -30,6 +31,7 @@ __all__ = [
     "Feature",
     "FEATURES",
     "feature_vector",
+    "feature_limits",
     "feature_matrix",
     "training_set",
     "LineRatioNeighbors",
@@ -48,13 +50,16 @@ class Feature:
 
 
 #: Features used by the model (pairs chosen for being close in wavelength and unblended).
+#: Si II 4128+4131 / Si III 4553 is left out: at the MILES library Teff and log g of the
+#: B2 IV stars (21-21.6 kK, data) the grid's Si II 4128 and 4131 are 0.11-0.13 A each
+#: where the measured EWs are <= 0.03 A, so the feature pulled every such star ~4 kK
+#: hotter (one subtype earlier). The Si II rule in :mod:`starlines.rules` still uses it.
 FEATURES: tuple[Feature, ...] = (
     Feature("HeI4471/HeII4541", ("HeI4471",), ("HeII4541",)),
     Feature("HeI4144/HeII4200", ("HeI4144",), ("HeII4200",)),
     Feature("HeI4388/HeII4541", ("HeI4388",), ("HeII4541",)),
     Feature("SiIII4553/HeII4541", ("SiIII4553",), ("HeII4541",)),
     Feature("SiIV4089/SiIII4553", ("SiIV4089",), ("SiIII4553",)),
-    Feature("SiII4128+4131/SiIII4553", ("SiII4128", "SiII4131"), ("SiIII4553",)),
     Feature("MgII4481/HeI4471", ("MgII4481",), ("HeI4471",)),
     Feature("CII4267/HeI4471", ("CII4267",), ("HeI4471",)),
     Feature("HeII4686/HeI4713", ("HeII4686",), ("HeI4713",)),
@@ -75,8 +80,12 @@ def _effective(ew: np.ndarray, err: np.ndarray) -> np.ndarray:
 
 
 def feature_matrix(ew: Mapping[str, np.ndarray], err: Mapping[str, np.ndarray],
-                   features=FEATURES) -> np.ndarray:
-    """Feature matrix from EW and error arrays per line id (missing ids -> NaN features)."""
+                   features=FEATURES, *, detection_floor: bool = True) -> np.ndarray:
+    """Feature matrix from EW and error arrays per line id (missing ids -> NaN features).
+
+    With ``detection_floor`` (spectra) an EW enters the log as at least its 3-sigma
+    detection limit; without it (noisy training copies) only :data:`EW_FLOOR` applies.
+    """
     n = len(next(iter(ew.values())))
     out = np.full((n, len(features)), np.nan)
     for j, f in enumerate(features):
@@ -89,20 +98,53 @@ def feature_matrix(ew: Mapping[str, np.ndarray], err: Mapping[str, np.ndarray],
                 break
             e = sum(np.asarray(ew[i], float) for i in group)
             s = np.sqrt(sum(np.asarray(err[i], float) ** 2 for i in group))
-            parts.append(_effective(e, s))
+            parts.append(_effective(e, s) if detection_floor else np.maximum(e, EW_FLOOR))
         else:
             out[:, j] = np.log10(parts[0] / parts[1])
     return out
 
 
+def feature_limits(values: Mapping[str, LineValue], features=FEATURES) -> np.ndarray:
+    """Censoring of each feature of :func:`feature_vector`.
+
+    +1 when the feature is a lower limit (numerator detected, denominator not: the true
+    ratio is at least the value), -1 an upper limit (numerator undetected), 0 a measured
+    value, NaN when neither part is detected (no information) or a line is missing.
+    """
+    ok = {k: v for k, v in values.items() if v.usable and not v.in_emission}
+    out = np.full(len(features), np.nan)
+    for j, f in enumerate(features):
+        if any(i not in ok for i in f.numerator + f.denominator):
+            continue
+        num = sum(ok[i].ew for i in f.numerator) > DETECTION_SIGMA * math.sqrt(
+            sum(_err2(ok[i]) for i in f.numerator))
+        if not f.denominator:
+            out[j] = 0.0 if num else -1.0
+            continue
+        den = sum(ok[i].ew for i in f.denominator) > DETECTION_SIGMA * math.sqrt(
+            sum(_err2(ok[i]) for i in f.denominator))
+        if num or den:
+            out[j] = 0.0 if (num and den) else (1.0 if num else -1.0)
+    return out
+
+
+def _err2(v: LineValue) -> float:
+    return v.err**2 if math.isfinite(v.err) else 0.0
+
+
 def feature_vector(values: Mapping[str, LineValue], features=FEATURES) -> np.ndarray:
-    """Features of one spectrum; lines missing, unusable or in emission give NaN."""
+    """Features of one spectrum; lines missing, unusable or in emission give NaN.
+
+    A ratio whose lines are both undetected is NaN too (see :func:`feature_limits`).
+    """
     ok = {k: v for k, v in values.items() if v.usable and not v.in_emission}
     ew = {k: np.array([v.ew]) for k, v in ok.items()}
     err = {k: np.array([v.err if np.isfinite(v.err) else 0.0]) for k, v in ok.items()}
     if not ew:
         return np.full(len(features), np.nan)
-    return feature_matrix(ew, err, features)[0]
+    x = feature_matrix(ew, err, features)[0]
+    x[np.isnan(feature_limits(values, features))] = np.nan
+    return x
 
 
 def training_set(grid, *, copies: int = 8, abs_err=(0.02, 0.10), rel_err=(0.05, 0.10),
@@ -147,7 +189,7 @@ def training_set(grid, *, copies: int = 8, abs_err=(0.02, 0.10), rel_err=(0.05, 
             sigma = a + b * np.abs(e)
             ew[i] = e + rng.normal(0.0, 1.0, n) * sigma
             err[i] = sigma
-        xs.append(feature_matrix(ew, err, features))
+        xs.append(feature_matrix(ew, err, features, detection_floor=False))
         ts.append(tgt)
     X, targets = np.vstack(xs), np.vstack(ts)
     y = np.array([round_subtype(s) for s in targets[:, 0]])
@@ -201,10 +243,15 @@ class LineRatioNeighbors(ClassifierMixin, BaseEstimator):
         self.n_features_in_ = X.shape[1]
         return self
 
-    def kneighbors(self, X):
-        """Indices and masked distances of the nearest training rows, per query row."""
+    def kneighbors(self, X, limits=None):
+        """Indices and masked distances of the nearest training rows, per query row.
+
+        ``limits`` (same shape as ``X``, see :func:`feature_limits`): +1 marks a lower
+        limit, so training rows above the value add no distance; -1 an upper limit.
+        """
         check_is_fitted(self, "X_")
         X = np.atleast_2d(np.asarray(X, float))
+        lim = np.zeros_like(X) if limits is None else np.atleast_2d(np.asarray(limits, float))
         k = min(self.n_neighbors, len(self.X_))
         idx = np.zeros((len(X), k), int)
         dist = np.full((len(X), k), np.inf)
@@ -213,7 +260,11 @@ class LineRatioNeighbors(ClassifierMixin, BaseEstimator):
             if not ok.any():
                 idx[r] = -1
                 continue
-            d2 = (((self.X_[:, ok] - x[ok]) / self.scale_[ok]) ** 2).mean(axis=1)
+            diff = self.X_[:, ok] - x[ok]
+            lo, hi = lim[r, ok] > 0, lim[r, ok] < 0
+            diff[:, lo] = np.minimum(diff[:, lo], 0.0)  # true value >= x: only below counts
+            diff[:, hi] = np.maximum(diff[:, hi], 0.0)
+            d2 = ((diff / self.scale_[ok]) ** 2).mean(axis=1)
             part = np.argpartition(d2, k - 1)[:k]
             order = part[np.argsort(d2[part])]
             idx[r], dist[r] = order, np.sqrt(d2[order])
@@ -224,9 +275,9 @@ class LineRatioNeighbors(ClassifierMixin, BaseEstimator):
         w = 1.0 / (dist + 0.3)  # soft inverse-distance weights (0.3 = typical scaled noise)
         return w / w.sum(axis=1, keepdims=True)
 
-    def predict_proba(self, X) -> np.ndarray:
+    def predict_proba(self, X, limits=None) -> np.ndarray:
         """Weighted votes of the neighbours over :attr:`classes_` (rows without features: NaN)."""
-        return self._proba(*self.kneighbors(X))
+        return self._proba(*self.kneighbors(X, limits))
 
     def _proba(self, dist, idx):
         out = np.full((len(idx), len(self.classes_)), np.nan)
@@ -245,18 +296,18 @@ class LineRatioNeighbors(ClassifierMixin, BaseEstimator):
         out[good] = self.classes_[np.argmax(p[good], axis=1)].astype(float)
         return out
 
-    def predict_parameters(self, X) -> tuple[np.ndarray, np.ndarray]:
+    def predict_parameters(self, X, limits=None) -> tuple[np.ndarray, np.ndarray]:
         """Weighted median and spread (half the 16-84 % range) of :data:`TARGETS`.
 
         Returns
         -------
         value, error : ndarray (n, len(TARGETS))
         """
-        return self._parameters(*self.kneighbors(X))
+        return self._parameters(*self.kneighbors(X, limits))
 
-    def predict_all(self, X) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def predict_all(self, X, limits=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """:meth:`predict_parameters` and :meth:`predict_proba` from one neighbour search."""
-        dist, idx = self.kneighbors(X)
+        dist, idx = self.kneighbors(X, limits)
         return (*self._parameters(dist, idx), self._proba(dist, idx))
 
     def _parameters(self, dist, idx):

@@ -15,6 +15,7 @@ from starlines.knn import (
     FEATURES,
     TARGETS,
     LineRatioNeighbors,
+    feature_limits,
     feature_matrix,
     feature_vector,
     training_set,
@@ -33,7 +34,7 @@ def _features(subtype, lum, he=0.1, drop=()):
     teff, logg = type_parameters(subtype, lum)
     ews = toy_ews(teff, logg, he)
     vals = {k: LineValue(float(v), 0.01) for k, v in ews.items() if k not in drop}
-    return feature_vector(vals), teff, logg
+    return feature_vector(vals), teff, logg, feature_limits(vals)
 
 
 def test_estimator_conventions():
@@ -64,8 +65,8 @@ def test_teff_scale_round_trip():
 @pytest.mark.parametrize("subtype, lum", [(6.0, 5.0), (8.0, 3.0), (9.5, 5.0), (11.0, 5.0),
                                           (12.0, 3.0), (12.5, 1.0)])
 def test_recovers_injected_types(fitted, subtype, lum):
-    x, teff, logg = _features(subtype, lum)
-    val, err = fitted.predict_parameters(x[None, :])
+    x, teff, logg, lim = _features(subtype, lum)
+    val, err = fitted.predict_parameters(x[None, :], lim[None, :])
     got = dict(zip(TARGETS, val[0]))
     assert got["subtype"] == pytest.approx(subtype, abs=0.75)
     assert got["teff"] == pytest.approx(teff, abs=2000.0)  # K
@@ -77,8 +78,8 @@ def test_recovers_injected_types(fitted, subtype, lum):
 
 
 def test_proba_is_a_distribution(fitted):
-    x, *_ = _features(9.0, 5.0)
-    p = fitted.predict_proba(x[None, :])[0]
+    x, _, _, lim = _features(9.0, 5.0)
+    p = fitted.predict_proba(x[None, :], lim[None, :])[0]
     assert p.sum() == pytest.approx(1.0)
     best = fitted.predict(x[None, :])[0]
     assert best in fitted.classes_
@@ -87,9 +88,9 @@ def test_proba_is_a_distribution(fitted):
 
 def test_missing_lines_use_remaining_features(fitted):
     # drop the Si and Mg lines: the He ratios alone must still place a mid-O star
-    x, *_ = _features(7.0, 5.0, drop=("SiIII4553", "SiIV4089", "MgII4481", "CII4267"))
+    x, _, _, lim = _features(7.0, 5.0, drop=("SiIII4553", "SiIV4089", "MgII4481", "CII4267"))
     assert np.isnan(x).sum() >= 4
-    val, _ = fitted.predict_parameters(x[None, :])
+    val, _ = fitted.predict_parameters(x[None, :], lim[None, :])
     assert val[0, 0] == pytest.approx(7.0, abs=1.0)
 
 
@@ -107,9 +108,9 @@ def test_helium_abundance_ordering():
                                          rel_err=(0.01, 0.02))
     fitted = LineRatioNeighbors(n_neighbors=10).fit(X, y, targets, groups)
     k = TARGETS.index("he")
-    poor, *_ = _features(11.0, 5.0, he=0.07)
-    rich, *_ = _features(11.0, 5.0, he=0.15)
-    val, _ = fitted.predict_parameters(np.vstack([poor, rich]))
+    poor, _, _, lim_p = _features(11.0, 5.0, he=0.07)
+    rich, _, _, lim_r = _features(11.0, 5.0, he=0.15)
+    val, _ = fitted.predict_parameters(np.vstack([poor, rich]), np.vstack([lim_p, lim_r]))
     assert val[0, k] < val[1, k]
 
 
@@ -119,3 +120,20 @@ def test_feature_floor_and_limits():
                        {"HeI4471": np.array([0.01]), "HeII4541": np.array([0.01])})
     assert X[0, 0] == pytest.approx(np.log10(0.9 / 0.03))
     assert np.isnan(X[0, 1])  # He I 4144 / He II 4200 absent
+
+
+def test_censored_features():
+    # He I 4471 detected, He II 4541 not (0 +- 0.01 A): log W' is a lower limit; both
+    # undetected: no information (NaN); a lower limit adds no distance to training rows
+    # above it (injected limits; the analytic distance is the reference)
+    vals = {"HeI4471": LineValue(0.9, 0.01), "HeII4541": LineValue(0.0, 0.01),
+            "HeI4144": LineValue(0.0, 0.01), "HeII4200": LineValue(0.0, 0.01)}
+    lim = feature_limits(vals)
+    assert lim[0] == 1.0 and np.isnan(lim[1])
+    x = feature_vector(vals)
+    assert x[0] == pytest.approx(np.log10(0.9 / 0.03)) and np.isnan(x[1])
+    est = LineRatioNeighbors(n_neighbors=2, feature_floor=0.0).fit(
+        np.array([[2.0], [1.0], [0.5]]), np.array([11.0, 10.0, 9.0]))
+    est.scale_ = np.array([1.0])
+    dist, idx = est.kneighbors(np.array([[1.5]]), np.array([[1.0]]))
+    assert list(idx[0]) == [0, 1] and dist[0] == pytest.approx([0.0, 0.5])
