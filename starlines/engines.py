@@ -229,6 +229,25 @@ def _map_serial(func: Callable[[str], object], paths: Iterator[str]) -> Iterator
         yield path, result
 
 
+def _pool_worker_init(parent_pid: int) -> None:
+    """Initializer of a pool worker: die with the parent (Linux), then :func:`worker_setup`.
+
+    Without this, killing the driver (SIGTERM/SIGKILL) leaves its spawned workers waiting
+    on their task queue forever.
+    """
+    try:
+        import ctypes
+        import signal
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):  # not Linux: the executor's own checks remain
+        pass
+    if os.getppid() != parent_pid:  # the parent died before prctl took effect
+        os._exit(1)
+    worker_setup()
+
+
 def _new_pool(workers: int):
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
@@ -236,7 +255,8 @@ def _new_pool(workers: int):
     return ProcessPoolExecutor(
         max_workers=workers,
         mp_context=multiprocessing.get_context("spawn"),
-        initializer=worker_setup,
+        initializer=_pool_worker_init,
+        initargs=(os.getpid(),),
     )
 
 
