@@ -288,7 +288,7 @@ def detect_sb2(wavelength, norm_flux, good, *, noise: float, rest: dict[str, flo
                                 100.0 * math.ceil(w[-1] / 100.0 + 0.5))
         try:
             res = cross_correlate(w, norm_flux, tmpl, noise=noise, good=good & near,
-                                  vmax=900.0)
+                                  vmax=900.0, refine=False)
             ccf_ok = True
         except ValueError:
             pass

@@ -242,6 +242,7 @@ def cross_correlate(
     good: np.ndarray | None = None,
     vmax: float = 1000.0,
     oversample: int = 2,
+    refine: bool = True,
 ) -> CCFResult:
     """Cross-correlate a normalized spectrum with a template.
 
@@ -261,6 +262,9 @@ def cross_correlate(
         Largest |velocity| searched (km/s).
     oversample : int
         Lag-grid points per spectrum pixel.
+    refine : bool
+        Refine the peak with correlations on the spectrum's own pixels (the velocity of
+        record); False keeps a parabola on the resampled CCF (a quick look).
 
     Returns
     -------
@@ -305,7 +309,12 @@ def cross_correlate(
     velocity = C_KMS * np.expm1(lags * dlog)
     i = int(np.argmax(ccf))
     _, _, _, fwhm_lags = _peak_fit(lags, ccf, i)
-    rv, height, curv = _refine_peak(w, depth, use, tmpl, float(velocity[i]), step)
+    if refine:
+        rv, height, curv = _refine_peak(w, depth, use, tmpl, float(velocity[i]), step)
+    else:
+        lag, height, c2, _ = _peak_fit(lags, ccf, i)
+        rv = C_KMS * math.expm1(lag * dlog)
+        curv = c2 / (step * step) if math.isfinite(c2) else math.nan
     ccf_noise = float(noise) * math.sqrt(oversample) / max(xnorm, 1e-300)
     rv_err = _zucker_error(height, curv, n_pix)
     r = _tonry_davis_r(ccf, i, ccf[i])
@@ -324,13 +333,14 @@ def pearson_at(wavelength, depth, use, fine: TabulatedTemplate, velocities) -> n
 
 
 def _refine_peak(w, depth, use, fine, v0: float, step: float) -> tuple[float, float, float]:
-    """Peak of the pixel-space correlation near ``v0``: parabola on 9 points, twice.
+    """Peak of the pixel-space correlation near ``v0``: parabola on 7 points over +-1.5
+    lag steps, then on 5 points over +-0.5 step.
 
     Returns (velocity, height, curvature in (km/s)^-2).
     """
     v, height, curv = v0, math.nan, math.nan
-    for span in (1.5 * step, 0.5 * step):
-        vs = v + np.linspace(-span, span, 9)
+    for span, npt in ((1.5 * step, 7), (0.5 * step, 5)):
+        vs = v + np.linspace(-span, span, npt)
         c = pearson_at(w, depth, use, fine, vs)
         c2, c1, c0 = np.polyfit(vs - v, c, 2)
         if c2 >= 0:

@@ -85,8 +85,8 @@ def broadening_kernel(step_kms: float, vsini: float, sigma_kms: float) -> np.nda
 
 
 def synthetic_template(teff: float, logg: float, he: float, *, vsini: float,
-                       resolution_fwhm: float, medium: str, wmin: float,
-                       wmax: float) -> TabulatedTemplate:
+                       resolution_fwhm: float, medium: str, wmin: float, wmax: float,
+                       pixel_step: float = 0.0) -> TabulatedTemplate:
     """Synthetic template of the type nearest (teff, logg, he), broadened for one star.
 
     Parameters
@@ -101,16 +101,32 @@ def synthetic_template(teff: float, logg: float, he: float, *, vsini: float,
         Medium of the rest wavelengths.
     wmin, wmax : float
         Wavelength range of the spectrum (Angstrom).
+    pixel_step : float
+        Pixel size of the spectrum (Angstrom); 0 keeps the model's 2 km/s step.
     """
     from scipy.signal import fftconvolve
 
     lo, hi = _span(wmin, wmax)
     grid, depth = _unbroadened(type_key(teff, logg, he), medium, lo, hi)
     sigma = C_KMS * resolution_fwhm / (0.5 * (wmin + wmax)) / 2.354820045
-    kern = broadening_kernel(TEMPLATE_STEP_KMS, vsini, sigma)
+    pixel = C_KMS * pixel_step / (0.5 * (wmin + wmax)) if pixel_step > 0 else 0.0
+    factor = _binning(pixel, 2.354820045 * sigma)
+    if factor > 1:  # averaging bins is a box of `factor` steps: negligible beside the kernel
+        n = depth.size // factor
+        depth = depth[:n * factor].reshape(n, factor).mean(axis=1)
+        grid = grid[:n * factor].reshape(n, factor).mean(axis=1)
+    kern = broadening_kernel(TEMPLATE_STEP_KMS * factor, vsini, sigma)
     if kern.size > 1:
         depth = fftconvolve(depth, kern, mode="same")
     return TabulatedTemplate(grid, depth)
+
+
+def _binning(pixel_kms: float, fwhm_kms: float) -> int:
+    """How many model steps to average: the template step stays below 1/8 pixel and 1/12
+    of the instrumental FWHM (so the broadened profile is sampled as finely as needed)."""
+    if not (pixel_kms > 0 and fwhm_kms > 0):
+        return 1
+    return max(1, int(min(pixel_kms / 8.0, fwhm_kms / 12.0) // TEMPLATE_STEP_KMS))
 
 
 def default_template(spec, table, classification=None, *, vsini: float = math.nan):
@@ -135,7 +151,8 @@ def default_template(spec, table, classification=None, *, vsini: float = math.na
                            _finite_or(classification.he_abundance, 0.1))
             tmpl = synthetic_template(*key, vsini=max(vs, 0.0), resolution_fwhm=res,
                                       medium=spec.medium, wmin=float(w[0]),
-                                      wmax=float(w[-1]))
+                                      wmax=float(w[-1]),
+                                      pixel_step=float(np.median(np.diff(w))))
             return tmpl, (f"synthetic spectrum Teff {key[0]:.0f} K, log g {key[1]:.2f}, "
                           f"He/H {key[2]:.2f}, v sin i {vs:.0f} km/s")
         except ImportError:

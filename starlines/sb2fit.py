@@ -30,6 +30,13 @@ WINDOW_KMS = 550.0
 #: Rotation grids (km/s) of the one- and two-component models.
 VSINI_SINGLE = (0.0, 40.0, 80.0, 120.0, 160.0, 200.0, 250.0, 300.0, 360.0)
 VSINI_PAIR = (0.0, 60.0, 130.0)
+#: Intrinsic Gaussian sigmas (km/s, added in quadrature to the instrument's) of the one-
+#: and two-component models: thermal + microturbulent (~20), and Stark-broadened diffuse
+#: He I lines of dwarfs (FWHM 1-2 A, i.e. sigma 30-60 km/s; from memory). The single
+#: model gets the wider set so that a profile shape it cannot follow is not credited to a
+#: companion.
+INTRINSIC_SIGMA_SINGLE = (0.0, 20.0, 45.0, 70.0)
+INTRINSIC_SIGMA_PAIR = (0.0, 30.0, 60.0)
 #: Step (km/s) of the tabulated unit profiles.
 _FINE_STEP = 2.0
 _FINE_V = np.arange(-1300.0, 1300.0 + 1.0, _FINE_STEP)
@@ -212,14 +219,14 @@ def fit_components(data: LineData, noise: float, sigma_inst: float,
     coarse = min(40.0, sigma_inst * 2.3548 / 2.0)
     fine = coarse / 4.0
     vgrid = v_guess + np.arange(-350.0, 350.0 + coarse / 2, coarse)
-    sig1 = (sigma_inst, math.hypot(sigma_inst, 20.0), math.hypot(sigma_inst, 45.0))
+    sig1 = tuple(math.hypot(sigma_inst, x) for x in INTRINSIC_SIGMA_SINGLE)
     v0, vs0, s0, _ = _best_single(data, vgrid, [(s, vs) for s in sig1
                                                 for vs in VSINI_SINGLE], noise)
     near = v0 + fine * np.arange(-6, 7)
     vs_near = sorted({max(vs0 + dv, 0.0) for dv in (-20.0, -10.0, 0.0, 10.0, 20.0)})
     v0, vs0, s0, per1 = _best_single(data, near, [(s, vs) for s in sig1 for vs in vs_near],
                                      noise)
-    sig2 = (sigma_inst, math.hypot(sigma_inst, 30.0))
+    sig2 = tuple(math.hypot(sigma_inst, x) for x in INTRINSIC_SIGMA_PAIR)
     # pairs share sigma: search each sigma separately on the coarse grid
     best = None
     for s in sig2:

@@ -147,12 +147,9 @@ def _detected_kinds(ids, status, emission, signif) -> set[str]:
             if s == "measured" and not e and (not math.isfinite(g) or g >= MIN_SIGNIFICANCE)}
 
 
-def _near_emission(ident: str, medium: str, emitters: list[tuple[float, float]],
-                   fwhm: float) -> bool:
-    """True when the line lies within 2 emission FWHM + 1 line FWHM of an emission line."""
-    from starlines.lines import line
-
-    lam = line(ident).wavelength(medium)
+def _near_emission(lam: float, emitters: list[tuple[float, float]], fwhm: float) -> bool:
+    """True when a line at ``lam`` lies within 2 emission FWHM + 1 line FWHM of an emission
+    line."""
     own = fwhm if math.isfinite(fwhm) else 2.0
     return any(0 < abs(lam - lam_e) < 2.0 * fw_e + own for lam_e, fw_e in emitters)
 
@@ -162,6 +159,9 @@ def _line_choice(table, medium: str, path: str, *, keep_pulled: bool):
     from starlines.lines import line
 
     ids = [str(x) for x in table["line"]]
+    lns = {i: line(i) for i in ids}
+    for ln in list(lns.values()):
+        lns.update({b: line(b) for b in ln.blends if b not in lns})
     rest = _rest_wavelengths(table, medium, path)
     cen = _col(table, "centroid").astype(float)
     cerr = _col(table, "centroid_err").astype(float)
@@ -175,14 +175,14 @@ def _line_choice(table, medium: str, path: str, *, keep_pulled: bool):
     unseparated = {i for i, s in zip(ids, status) if s == "blended"}
     kinds = _detected_kinds(ids, status, emission, signif)
     em = [k for k in range(len(ids)) if status[k] == "measured" and emission[k]]
-    emitters = [(line(ids[k]).wavelength(medium), fwhm[k] if math.isfinite(fwhm[k]) else 5.0)
+    emitters = [(lns[ids[k]].wavelength(medium), fwhm[k] if math.isfinite(fwhm[k]) else 5.0)
                 for k in em]
     of_star = any(ids[k] in OF_COMPLEX for k in em)
-    balmer_emission = any(line(ids[k]).kind == "balmer" for k in em)
+    balmer_emission = any(lns[ids[k]].kind == "balmer" for k in em)
     reasons, used = [], {}
     for k, ident in enumerate(ids):
-        ln = line(ident)
-        pulled = [b for b in ln.blends if b in unseparated and line(b).kind in kinds]
+        ln = lns[ident]
+        pulled = [b for b in ln.blends if b in unseparated and lns[b].kind in kinds]
         twin = [b for b in ln.blends if b in used and used[b] == (rv[k], err[k])]
         if status[k] != "measured":
             reasons.append(status[k])
@@ -192,7 +192,7 @@ def _line_choice(table, medium: str, path: str, *, keep_pulled: bool):
             reasons.append(WIND_LINES[ident])
         elif of_star and ident in OF_COMPLEX:
             reasons.append("Of emission complex")
-        elif _near_emission(ident, medium, emitters, fwhm[k]):
+        elif _near_emission(ln.wavelength(medium), emitters, fwhm[k]):
             reasons.append("near an emission line")
         elif pulled and keep_pulled is False:
             reasons.append(f"blended with {pulled[0]} (not separated)")
@@ -309,13 +309,30 @@ FOREIGN_BANDS = ((3928.0, 3940.0), (4410.0, 4450.0), (5770.0, 5805.0), (5885.0, 
                  (6270.0, 6300.0), (6860.0, 6960.0), (7160.0, 7340.0), (7590.0, 7700.0))
 
 
+def _pickering_balmer(table) -> set[str]:
+    """Balmer lines with a He II Pickering neighbour, when He II is seen in the star: their
+    blend depends on He/H, log g and Teff, so a template of a neighbouring type shifts the
+    CCF (by 5-10 km/s for the demo's O supergiant even when the fit separated the lines)."""
+    from starlines.lines import line
+
+    ids = [str(x) for x in table["line"]]
+    status = [str(s) for s in _col(table, "status", "measured")]
+    kinds = _detected_kinds(ids, status, _col(table, "emission", False).astype(bool),
+                            np.abs(_col(table, "significance").astype(float)))
+    if "heii" not in kinds:
+        return set()
+    return {i for i in ids if line(i).kind == "balmer"
+            and any(line(b).kind == "heii" for b in line(i).blends)}
+
+
 def _ccf_mask(spec, table, good, rejected: dict[str, str] | None = None,
               resolution: float = 0.0) -> np.ndarray:
     """Usable pixels for the CCF: the hot-star region when covered, without interstellar
     and telluric features, wind lines, lines in or near emission, and lines the centroid
-    choice dropped as pulled by an unseparated blend (``rejected``: line id -> reason;
-    only when ``resolution``, the instrumental FWHM in Angstrom, is at most
-    :data:`CCF_BLEND_MASK_MAX_RESOLUTION`)."""
+    choice dropped as pulled by an unseparated blend (``rejected``: line id -> reason) and
+    the Balmer lines of stars with He II (:func:`_pickering_balmer`); the last two only
+    when ``resolution``, the instrumental FWHM in Angstrom, is at most
+    :data:`CCF_BLEND_MASK_MAX_RESOLUTION`."""
     from starlines.lines import line
 
     w, use = spec.wavelength, good.copy()
@@ -332,11 +349,12 @@ def _ccf_mask(spec, table, good, rejected: dict[str, str] | None = None,
     em = _col(table, "emission", False).astype(bool)
     fwhm = _col(table, "fwhm")
     rejected = rejected or {}
-    excluded = _CCF_EXCLUDED if resolution <= CCF_BLEND_MASK_MAX_RESOLUTION else \
-        _CCF_EXCLUDED[1:]
+    fine = resolution <= CCF_BLEND_MASK_MAX_RESOLUTION
+    excluded = _CCF_EXCLUDED if fine else _CCF_EXCLUDED[1:]
+    pickering = _pickering_balmer(table) if fine else set()
     for ident, e, fw in zip(table["line"], em, fwhm):
         why = rejected.get(str(ident), "")
-        if e or why.startswith(excluded):
+        if e or why.startswith(excluded) or str(ident) in pickering:
             half = CCF_EXCLUDE_FWHM * (fw if math.isfinite(fw) else 5.0)
             use &= np.abs(w - line(str(ident)).wavelength(spec.medium)) > half
     return use
