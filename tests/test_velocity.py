@@ -263,3 +263,27 @@ def test_demo_of_star_velocity_not_pulled_by_emission(tmp_path):
     assert abs(res.rv - star.rv) < 3 * res.rv_err + 2.0
     assert abs(res.rv_ccf - star.rv) < 3 * res.rv_ccf_err + 2.0
     assert "HeII4686" not in res.lines_used and "NIII4641" not in res.lines_used
+
+
+def test_triage_site_options_reach_the_velocity_stage(tmp_path, capsys):
+    """--site overrides the header's site (frame_reason names it, and the correction
+    differs from the header site's by the rotation term); an unknown site stops the
+    triage before any work with exit status 2."""
+    from starlines.cli import main
+    from starlines.demo import demo_stars, write_demo_night
+    from starlines.pipeline import AnalysisOptions, analyse_file
+
+    star = {s.name: s for s in demo_stars()}["H7-20"]
+    path = write_demo_night(tmp_path / "n", stars=[star])["files"][0]
+    cfg = tmp_path / "sites.toml"
+    cfg.write_text('[sites.antipode]\nname = "Antipode"\nlat_deg = 27.63\n'
+                   'lon_east_deg = 111.79\nheight_m = 0\n')
+    header = analyse_file(path).rows[0]
+    moved = analyse_file(path, AnalysisOptions(site="antipode", site_config=str(cfg))).rows[0]
+    assert header["rv_frame"] == moved["rv_frame"] == "barycentric"
+    assert "antipode" in moved["rv_frame_reason"]
+    # the site's rotation velocity (<= 0.47 km/s) projected differently: not identical
+    diff = abs(header["barycentric_correction"] - moved["barycentric_correction"])
+    assert 1e-3 < diff < 1.0
+    assert main(["triage", str(tmp_path / "n" / "night"), "--site", "nowhere"]) == 2
+    assert "unknown site" in capsys.readouterr().err
