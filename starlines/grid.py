@@ -156,12 +156,30 @@ def build_grid(points=None, *, progress: bool = False):
 
 
 def shipped_grid_path() -> Path:
-    """Path of the shipped grid file (inside the installed ``starlines.grids`` package)."""
-    return Path(str(resources.files("starlines.grids") / GRID_FILENAME))
+    """Path of the shipped grid file.
+
+    Inside the installed ``starlines.grids`` package (pyproject maps the top-level
+    ``grids/`` folder to it); when the package runs from a source checkout that is not
+    installed, ``starlines.grids`` does not exist and the checkout's ``grids/`` is used.
+    """
+    try:
+        return Path(str(resources.files("starlines.grids") / GRID_FILENAME))
+    except ModuleNotFoundError:
+        import starlines
+
+        return Path(starlines.__file__).resolve().parent.parent / "grids" / GRID_FILENAME
+
+
+#: Name of the parsed shipped grid's entries in the user cache (:mod:`starlines.cache`).
+GRID_CACHE_NAME = "grid"
 
 
 def load_grid(path=None):
     """Read the shipped grid (or ``path``) as an astropy Table.
+
+    The shipped grid is parsed once and kept as ``.npz`` in the user cache
+    (:mod:`starlines.cache`, keyed by the file's checksum), and in memory for the process;
+    every call returns a new Table (free to modify) equal to a fresh ECSV read.
 
     Raises
     ------
@@ -171,14 +189,24 @@ def load_grid(path=None):
     """
     import warnings
 
-    from astropy.table import Table
-
     from starlines.synthcal import MODEL_VERSION
 
     p = shipped_grid_path() if path is None else Path(path)
     if not p.is_file():
         raise ConfigError("grid file not found; rebuild it with 'starlines grid build'",
                           path=str(p))
+    tab = _load_shipped(p) if path is None else _read_ecsv(p)
+    if tab.meta["model_version"] != MODEL_VERSION:
+        warnings.warn(f"{p}: grid model version {tab.meta['model_version']} differs from the "
+                      f"code's {MODEL_VERSION}; rebuild with 'starlines grid build'",
+                      StarlinesWarning, stacklevel=2)
+    return tab
+
+
+def _read_ecsv(p: Path):
+    """Parse and check a grid file (ConfigError when it is not a starlines grid)."""
+    from astropy.table import Table
+
     try:
         tab = Table.read(p, format="ascii.ecsv")
     except Exception as exc:  # astropy raises many types for a corrupt file
@@ -188,10 +216,65 @@ def load_grid(path=None):
     if missing or "model_version" not in tab.meta:
         raise ConfigError(f"not a starlines grid (missing {sorted(missing) or 'metadata'})",
                           path=str(p))
-    if tab.meta["model_version"] != MODEL_VERSION:
-        warnings.warn(f"{p}: grid model version {tab.meta['model_version']} differs from the "
-                      f"code's {MODEL_VERSION}; rebuild with 'starlines grid build'",
-                      StarlinesWarning, stacklevel=2)
+    return tab
+
+
+def _grid_to_arrays(tab) -> dict[str, np.ndarray]:
+    from starlines.cache import json_array
+
+    layout = {"names": tab.colnames, "units": [None if tab[n].unit is None else
+                                               tab[n].unit.to_string() for n in tab.colnames],
+              "meta": dict(tab.meta)}
+    arrays = {f"col{i}": np.asarray(tab[n]) for i, n in enumerate(tab.colnames)}
+    arrays["layout"] = json_array(layout)
+    return arrays
+
+
+def _table_from_arrays(arrays: dict[str, np.ndarray]):
+    from astropy.table import Table
+
+    from starlines.cache import from_json_array
+
+    layout = from_json_array(arrays["layout"])
+    cols = [np.array(arrays[f"col{i}"]) for i in range(len(layout["names"]))]
+    tab = Table(cols, names=layout["names"], meta=layout["meta"], copy=False)
+    for name, unit in zip(layout["names"], layout["units"]):
+        if unit is not None:
+            tab[name].unit = unit
+    return tab
+
+
+_GRID_MEMO: dict[str, dict[str, np.ndarray]] = {}
+
+
+def _load_shipped(p: Path):
+    """The shipped grid from process memory, the user cache or (once) the ECSV file."""
+    from importlib import metadata
+
+    from starlines.cache import cache_key, code_digest, file_digest, load_arrays, save_arrays
+
+    try:
+        key = cache_key(GRID_CACHE_NAME, file_digest(p), code_digest(),
+                        f"astropy {metadata.version('astropy')}")
+    except OSError:
+        return _read_ecsv(p)
+    arrays = _GRID_MEMO.get(key) or load_arrays(GRID_CACHE_NAME, key)
+    if arrays is not None:
+        try:
+            tab = _table_from_arrays(arrays)
+            _GRID_MEMO.clear()
+            _GRID_MEMO[key] = arrays
+            return tab
+        except (KeyError, ValueError, TypeError):
+            pass  # entry of another layout: parse the file again and overwrite it
+    tab = _read_ecsv(p)
+    try:
+        arrays = _grid_to_arrays(tab)
+    except (TypeError, ValueError):  # metadata JSON cannot hold: no cache, same table
+        return tab
+    _GRID_MEMO.clear()
+    _GRID_MEMO[key] = arrays
+    save_arrays(GRID_CACHE_NAME, key, arrays)
     return tab
 
 

@@ -22,7 +22,8 @@ import numpy as np
 from starlines.rules import EW_FLOOR, SECONDARY, RatioCurveRule
 from starlines.teffscale import subtype_for_parameters
 
-__all__ = ["calibrate_rule", "calibrate_rules", "calibrated_rules", "grid_labels", "BIN_WIDTH"]
+__all__ = ["calibrate_rule", "calibrate_rules", "calibrated_rules", "grid_labels", "BIN_WIDTH",
+           "rules_to_json", "rules_from_json"]
 
 #: Width (subtypes) of the bins in which the grid's median ratio is taken.
 BIN_WIDTH = 0.25
@@ -117,9 +118,75 @@ def calibrate_rules(grid, rules=SECONDARY) -> tuple[RatioCurveRule, ...]:
     return tuple(calibrate_rule(r, grid, labels) for r in rules)
 
 
+#: Name of the calibrated rules' entries in the user cache (:mod:`starlines.cache`).
+RULES_CACHE_NAME = "rulecal"
+
+
+def _plain(value):
+    """JSON-ready copy of a rule field (tuples -> lists, numpy floats -> float)."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, (tuple, list)):
+        return [_plain(v) for v in value]
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    raise TypeError(f"rule field of type {type(value)} cannot be cached")
+
+
+def _tupled(value):
+    return tuple(_tupled(v) for v in value) if isinstance(value, list) else value
+
+
+def rules_to_json(calibrated, rules=SECONDARY) -> list[dict]:
+    """The fields calibration changed, per rule (for the cache)."""
+    out = []
+    for cal, raw in zip(calibrated, rules):
+        changed = {f.name: _plain(getattr(cal, f.name)) for f in dataclasses.fields(cal)
+                   if getattr(cal, f.name) != getattr(raw, f.name)}
+        out.append({"name": raw.name, "changed": changed})
+    return out
+
+
+def rules_from_json(doc, rules=SECONDARY) -> tuple[RatioCurveRule, ...]:
+    """Inverse of :func:`rules_to_json` (ValueError when the entry does not match ``rules``)."""
+    if [d["name"] for d in doc] != [r.name for r in rules]:
+        raise ValueError("cached rules do not match the rule list")
+    return tuple(dataclasses.replace(r, **{k: _tupled(v) for k, v in d["changed"].items()})
+                 for r, d in zip(rules, doc))
+
+
 @lru_cache(maxsize=1)
 def calibrated_rules() -> tuple[RatioCurveRule, ...]:
-    """:data:`~starlines.rules.SECONDARY` calibrated on the shipped grid (cached)."""
-    from starlines.grid import load_grid
+    """:data:`~starlines.rules.SECONDARY` calibrated on the shipped grid (cached).
 
-    return calibrate_rules(load_grid())
+    Cached in memory for the process and in the user cache (:mod:`starlines.cache`, keyed
+    by the grid file's checksum and the code) for later processes; equal to a fresh
+    :func:`calibrate_rules` either way.
+    """
+    from starlines.cache import (
+        cache_key,
+        code_digest,
+        file_digest,
+        from_json_array,
+        json_array,
+        load_arrays,
+        save_arrays,
+    )
+    from starlines.grid import load_grid, shipped_grid_path
+
+    try:
+        key = cache_key(RULES_CACHE_NAME, file_digest(shipped_grid_path()), code_digest())
+    except OSError:  # grid file unreadable: let load_grid report it
+        return calibrate_rules(load_grid())
+    cached = load_arrays(RULES_CACHE_NAME, key)
+    if cached is not None:
+        try:
+            return rules_from_json(from_json_array(cached["rules"]))
+        except (KeyError, ValueError, TypeError):
+            pass  # entry of another layout: recalibrate and overwrite
+    rules = calibrate_rules(load_grid())
+    try:
+        save_arrays(RULES_CACHE_NAME, key, {"rules": json_array(rules_to_json(rules))})
+    except TypeError:
+        pass
+    return rules
