@@ -14,9 +14,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from starlines.batchfit import FitProblem, solve_problems
 from starlines.profiles import C_KMS, FWHM_PER_SIGMA, BlendModel, Component
 
-__all__ = ["BlendFit", "fit_blend", "fit_single_line"]
+__all__ = ["BlendFit", "fit_blend", "fit_blends", "problem", "fit_single_line"]
 
 
 @dataclass
@@ -67,63 +68,6 @@ class BlendFit:
         return s, float(np.exp(self.p[self.model.amp_index[k] + 2]))
 
 
-def _levenberg_marquardt(fun_jac, p0, free, lower, upper, linear=False, max_iter=60,
-                         tol=1e-3):
-    """Minimise |r(p)|^2 over ``p[free]`` within [lower, upper]; ``fun_jac(p)`` gives (r, J).
-
-    Steps are projected onto the bounds. With ``linear`` (r linear in the free parameters)
-    one Gauss-Newton step is exact.
-    """
-    p = p0.copy()
-    r, J = fun_jac(p)
-    if linear:
-        Jf = J[:, free]
-        try:
-            step = np.linalg.solve(Jf.T @ Jf, -(Jf.T @ r))
-        except np.linalg.LinAlgError:
-            step = np.linalg.lstsq(Jf, -r, rcond=None)[0]
-        p[free] += step
-        return p, r + Jf @ step, J
-    cost = float(r @ r)
-    lam = 1e-3
-    all_free = free
-    for _ in range(max_iter):
-        # parameters held at a bound by the gradient sit this step out (active set)
-        grad = J[:, all_free].T @ r
-        pa = p[all_free]
-        held = ((pa <= lower[all_free]) & (grad > 0)) | ((pa >= upper[all_free]) & (grad < 0))
-        free = all_free[~held]
-        Jf = J[:, free]
-        A = Jf.T @ Jf
-        g = grad[~held]
-        d = np.diag(A).copy()
-        d[d <= 0] = 1.0
-        improved = False
-        while lam < 1e10:
-            try:
-                step = np.linalg.solve(A + lam * np.diag(d), -g)
-            except np.linalg.LinAlgError:
-                lam *= 10.0
-                continue
-            pn = p.copy()
-            pn[free] += step
-            np.clip(pn, lower, upper, out=pn)
-            rn, Jn = fun_jac(pn)
-            cn = float(rn @ rn)
-            if np.isfinite(cn) and cn <= cost:
-                improved = True
-                break
-            lam *= 8.0
-        if not improved:
-            break
-        done = cost - cn <= tol  # chi-square units: 1e-3 is far below a 1-sigma change
-        p, r, J, cost = pn, rn, Jn, cn
-        lam = max(lam / 5.0, 1e-9)
-        if done:
-            break
-    return p, r, J
-
-
 def fit_blend(
     model: BlendModel,
     x: np.ndarray,
@@ -160,42 +104,33 @@ def fit_blend(
     -------
     BlendFit
     """
+    return fit_blends([problem(model, x, y, err, p0, prior_sigma, free=free, bounds=bounds,
+                               floor_chi2=floor_chi2)])[0]
+
+
+def problem(model: BlendModel, x, y, err, p0, prior_sigma, *, free=None, bounds=None,
+            floor_chi2: bool = True, start=None) -> FitProblem:
+    """Bundle the arguments of :func:`fit_blend` for :func:`fit_blends`; ``start``
+    (default ``p0``) is where the iterations begin, ``p0`` stays the prior mean."""
     free = np.ones(p0.size, dtype=bool) if free is None else np.asarray(free, dtype=bool)
-    w = 1.0 / err
-    pidx = np.flatnonzero(np.isfinite(prior_sigma) & free)
-    pw = 1.0 / prior_sigma[pidx]
-    pmean = p0[pidx].copy()
-    n = x.size
-    rows = n + np.arange(pidx.size)
-
-    def fun_jac(p):
-        m, J = model.evaluate(p, x, jac=True)
-        r = np.concatenate([(m - y) * w, (p[pidx] - pmean) * pw])
-        out = np.zeros((n + pidx.size, p.size))
-        out[:n] = J * w[:, None]
-        out[rows, pidx] = pw
-        return r, out
-
-    linear = not np.any(free & model.nonlinear)
     lower, upper = (np.full(p0.size, -np.inf), np.full(p0.size, np.inf)) if bounds is None \
         else bounds
-    p, r, J = _levenberg_marquardt(fun_jac, p0, np.flatnonzero(free), lower, upper,
-                                   linear=linear)
-    ok = bool(np.all(np.isfinite(p)))
-    nfree = int(free.sum())
-    dof = max(n - (nfree - pidx.size), 1)
-    chi2_red = float(np.sum(r[:n] ** 2) / dof)
-    scale = max(1.0, chi2_red) if floor_chi2 else max(chi2_red, 0.25)
-    fi = np.flatnonzero(free)
-    Jf = J[:, fi]
-    try:
-        cf = np.linalg.inv(Jf.T @ Jf) * scale
-    except np.linalg.LinAlgError:
-        cf = np.linalg.pinv(Jf.T @ Jf) * scale
-    cov = np.zeros((p.size, p.size))
-    cov[np.ix_(fi, fi)] = cf
-    rms = float(np.sqrt(np.mean((r[:n] / w) ** 2)))
-    return BlendFit(model=model, p=p, cov=cov, chi2_red=chi2_red, residual_rms=rms, success=ok)
+    return FitProblem(model, np.asarray(x, float), np.asarray(y, float), np.asarray(err, float),
+                      np.asarray(p0, float), np.asarray(prior_sigma, float), free,
+                      np.asarray(lower, float), np.asarray(upper, float), floor_chi2,
+                      None if start is None else np.asarray(start, float))
+
+
+def fit_blends(problems: list[FitProblem]) -> list[BlendFit]:
+    """Fit many blends at once (see :mod:`starlines.batchfit`); same results as fitting
+    each with :func:`fit_blend` (Levenberg-Marquardt with analytic Jacobians, projected
+    bounds with an active set, priors as residual rows, covariance scaled by the reduced
+    chi-square of the data rows)."""
+    sols = solve_problems(problems)
+    return [BlendFit(model=pr.model, p=s.p[:pr.model.npar],
+                     cov=s.cov[:pr.model.npar, :pr.model.npar], chi2_red=s.chi2_red,
+                     residual_rms=s.residual_rms, success=s.success)
+            for pr, s in zip(problems, sols)]
 
 
 def fit_single_line(

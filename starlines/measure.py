@@ -29,7 +29,7 @@ import numpy as np
 from starlines.blends import FitGroup, PlannedLine, plan_lines
 from starlines.continuum import ContinuumFit, fit_continuum
 from starlines.errors import ConfigError, MeasurementError
-from starlines.fitting import BlendFit, fit_blend
+from starlines.fitting import BlendFit, fit_blends, problem
 from starlines.lines import Line, line, lines_in_range
 from starlines.profiles import (
     C_KMS,
@@ -107,13 +107,7 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
             p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.35
             if c.shape == "wing":  # Stark wings of a strong He line
                 p[ia + 2], prior[ia + 2] = np.log(0.4 * pl.fwhm), 1.0
-    cols = []
-    for c, ia in zip(model.components, model.amp_index):
-        mu = c.rest * (1.0 + v0 / C_KMS)
-        cols.append(gaussian(x, mu, np.exp(p[2 + model.nv + c.wgroup])))
-        if c.shape == "wing":
-            cols.append(lorentzian(x, mu, np.exp(p[ia + 2])))
-    X = np.column_stack([np.ones_like(x), (x - model.xmid) / model.halfspan, *[-q for q in cols]])
+    X = _design(model, p, x)
     try:
         inv = np.linalg.inv(X.T @ X)
         sol, var = inv @ (X.T @ y), np.diag(inv) * float(np.mean(err**2))
@@ -139,6 +133,18 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
                 free[ia + 1:ia + 3] = True
         j += nj
     return p, prior, free, amp_sigma
+
+
+def _design(model: BlendModel, p: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Columns of the linear model at fixed shapes: baseline, then per component its
+    Gaussian (and Lorentzian for ``"wing"`` shapes) of unit area, absorbed."""
+    cols = [np.ones_like(x), (x - model.xmid) / model.halfspan]
+    for c, ia in zip(model.components, model.amp_index):
+        mu = c.rest * (1.0 + p[2 + c.vgroup] / C_KMS)
+        cols.append(-gaussian(x, mu, np.exp(p[2 + model.nv + c.wgroup])))
+        if c.shape == "wing":
+            cols.append(-lorentzian(x, mu, np.exp(p[ia + 2])))
+    return np.column_stack(cols)
 
 
 def _bounds(model: BlendModel, p0: np.ndarray, prior: np.ndarray, amp_sigma: np.ndarray,
@@ -167,7 +173,8 @@ def _emission_prone(ident: str) -> bool:
     return ident.startswith(EMISSION_PRONE)
 
 
-def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
+def _setup_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
+    """The fit problem of group ``g`` (None when too few good pixels remain)."""
     i0, i1 = np.searchsorted(w, [g.lo, g.hi])
     m = good[i0:i1]
     x, yy, ee = w[i0:i1][m], y[i0:i1][m], e[i0:i1][m]
@@ -182,7 +189,7 @@ def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
                  for pl, sh, vg, wg in zip(g.members, shapes, g.vgroup, g.wgroup)]
         model = BlendModel(comps, 0.5 * (g.lo + g.hi), 0.5 * (g.hi - g.lo))
         if x.size < model.npar + 3:
-            return None, x
+            return None
         p0, prior, free, amp_sigma = _initial(model, g.members, x, yy, ee, fwhm, v0, cmean)
         # He lines keep a Lorentzian wing only when strong enough to constrain it
         weak = [k for k, pl in enumerate(g.members) if shapes[k] == "wing"
@@ -195,15 +202,30 @@ def _fit_group(g: FitGroup, w, y, e, good, cerr, fwhm, v0, floor_chi2):
     p0[model.amp_index] = np.maximum(p0[model.amp_index], -DETECTION_SIGMA * amp_sigma)
     dx = (x[-1] - x[0]) / max(x.size - 1, 1)
     bounds = _bounds(model, p0, prior, amp_sigma, float(dx), model.halfspan)
-    fit = fit_blend(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
-                    floor_chi2=floor_chi2)
-    if fit.chi2_red > CLIP_CHI2:
-        keep = _unmodelled(fit, x, yy, ee, g.members)
-        if not keep.all() and keep.sum() >= model.npar + 3:
-            x, yy, ee = x[keep], yy[keep], ee[keep]
-            fit = fit_blend(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
-                            floor_chi2=floor_chi2)
-    return fit, x
+    return problem(model, x, yy, ee, p0, prior, free=free, bounds=bounds,
+                   floor_chi2=floor_chi2)
+
+
+def _fit_groups(groups: list[FitGroup], w, y, e, good, cerr, fwhm, v0, floor_chi2):
+    """Fit every group at once; refit, without them, the groups whose residuals show
+    lines missing from the catalogue (reduced chi-square above :data:`CLIP_CHI2`)."""
+    probs = [_setup_group(g, w, y, e, good, cerr, fwhm, v0, floor_chi2) for g in groups]
+    todo = [i for i, pr in enumerate(probs) if pr is not None]
+    fits: list[BlendFit | None] = [None] * len(groups)
+    for i, fit in zip(todo, fit_blends([probs[i] for i in todo])):
+        fits[i] = fit
+    redo = []
+    for i in todo:
+        fit, pr = fits[i], probs[i]
+        if fit.chi2_red <= CLIP_CHI2:
+            continue
+        keep = _unmodelled(fit, pr.x, pr.y, pr.err, groups[i].members)
+        if not keep.all() and keep.sum() >= fit.model.npar + 3:
+            redo.append(i)
+            pr.x, pr.y, pr.err = pr.x[keep], pr.y[keep], pr.err[keep]
+    for i, fit in zip(redo, fit_blends([probs[i] for i in redo])):
+        fits[i] = fit
+    return fits
 
 
 def _unmodelled(fit: BlendFit, x, y, e, members) -> np.ndarray:
@@ -329,9 +351,9 @@ def measure_lines(spec: Spectrum, *, continuum: ContinuumFit | None = None, line
     results: dict[str, dict] = {}
     fits: dict[str, tuple[BlendFit, int]] = {}
     floor = cf.snr_source == "uncertainty"
-    for gi, g in enumerate(groups):
-        fit, _ = _fit_group(g, w, y, e, good, cf.continuum_err, cf.line_fwhm,
-                            cf.velocity_guess, floor)
+    group_fits = _fit_groups(groups, w, y, e, good, cf.continuum_err, cf.line_fwhm,
+                             cf.velocity_guess, floor)
+    for gi, (g, fit) in enumerate(zip(groups, group_fits)):
         for k, pl in enumerate(g.members):
             if fit is None:
                 pl.status = "masked"
