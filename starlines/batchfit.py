@@ -6,9 +6,10 @@ on arrays of a few hundred elements. Here all groups of similar size are packed 
 arrays (problem x pixel x component) and every Levenberg-Marquardt trial is one pass of
 array operations over the whole batch:
 
-* the model and its analytic Jacobian are evaluated per component column, then mapped onto
-  the parameters with one batched matrix product (``D @ Map``, where ``Map`` is a 0/1 matrix
-  that routes each component's derivative to its own or its tied parameter);
+* the model and its analytic Jacobian are evaluated per component row (pixels contiguous);
+  area, Lorentz-fraction and Lorentz-width derivatives are copied to their parameters'
+  rows, velocity and width derivatives summed onto their (possibly tied) parameters with
+  one batched matrix product by a 0/1 routing matrix;
 * the normal equations of all problems are solved in one batched ``numpy.linalg.solve``;
 * each problem has its own damping, acceptance test and stopping rule, exactly as in a
   single fit; finished problems are dropped from the batch.
@@ -113,15 +114,13 @@ class _Batch:
         self.rest, self.dmu, self.idx, self.wing = rest, rest / C_KMS, idx, wing
         self._derived()
         self.linear = ~np.any(self.free & self._nonlinear_mask(), axis=1)
-        # Map: rows of D (1, t, then per kind and component) -> parameter columns
-        self.Map = np.zeros((B, 2 + 5 * K, P))
-        self.Map[:, 0, 0] = 1.0
-        self.Map[:, 1, 1] = 1.0
+        # velocity and width derivatives of the components summed onto their (tied)
+        # parameters by one matrix product: MapVW (B, P, 2K), 0/1
+        self.MapVW = np.zeros((B, P, 2 * K))
         bb = np.repeat(np.arange(B), K)
-        for j in range(5):
-            rows = np.tile(2 + j * K + np.arange(K), B)
-            self.Map[bb, rows, idx[j].ravel()] = 1.0
-        self.Map[:, :, dummy] = 0.0
+        for j in (0, 1):
+            self.MapVW[bb, idx[j].ravel(), np.tile(j * K + np.arange(K), B)] = 1.0
+        self.MapVW[:, dummy, :] = 0.0
 
     def _derived(self) -> None:
         B, P = self.p0.shape
@@ -130,6 +129,8 @@ class _Batch:
         self.anywing = bool(self.wing.any())
         self.freemask = self.free[:, :, None] & self.free[:, None, :]
         self.diag = np.arange(P)
+        self.bK = np.repeat(np.arange(B), self.K)
+        self.rows = [self.idx[j].ravel() for j in range(5)]
 
     def _nonlinear_mask(self) -> np.ndarray:
         B, P = self.free.shape
@@ -146,7 +147,7 @@ class _Batch:
         for name in ("X", "Y", "W", "T"):
             setattr(out, name, getattr(self, name)[sel, :N])
         for name in ("n", "rest", "dmu", "wing", "p0", "start", "free", "lo", "hi", "pw", "floor",
-                     "linear", "Map"):
+                     "linear", "MapVW"):
             setattr(out, name, getattr(self, name)[sel])
         out.idx = self.idx[:, sel]
         out.N, out.K, out.P = N, self.K, self.P
@@ -154,57 +155,71 @@ class _Batch:
         return out
 
     def evaluate(self, p: np.ndarray):
-        """Weighted residuals (B, N) and weighted Jacobian (B, N, P) at parameters ``p``."""
-        v, lw, area, q, lg = p.ravel()[self.flat]
-        s = np.exp(lw)
-        d = self.X[:, :, None] - (self.rest + v * self.dmu)[:, None, :]
-        si = (1.0 / s)[:, None, :]
+        """Weighted residuals (B, N) and transposed weighted Jacobian (B, P, N) at ``p``.
+
+        Component-major layout (B, K, N): the pixel axis is the contiguous one, so every
+        operation runs over long rows; few full-size temporaries.
+        """
+        v, lw, area, q, lg = (x[:, :, None] for x in p.ravel()[self.flat])
+        B, K, N, P = self.X.shape[0], self.K, self.X.shape[1], self.P
+        si = np.exp(-lw)
+        d = self.X[:, None, :] - (self.rest[:, :, None] + v * self.dmu[:, :, None])
         u = d * si
         u2 = u * u
+        g = np.exp(u2 * -0.5)
+        g *= si / _SQRT2PI
         if self.anywing:
-            frac = self.wingf / (1.0 + np.exp(-np.clip(q, -50.0, 50.0)))
+            frac = self.wingf[:, :, None] / (1.0 + np.exp(-np.clip(q, -50.0, 50.0)))
             a, al, gam = area * (1.0 - frac), area * frac, np.exp(lg)
         else:
             a = area
-        g = np.exp(-0.5 * u2) * (si / _SQRT2PI)
-        ag = a[:, None, :] * g
-        prof = ag
+        ag = g * a
+        m = p[:, :1] + p[:, 1:2] * self.T - (a.transpose(0, 2, 1) @ g)[:, 0, :]
+        JT = np.zeros((B, P, N))
+        VW = np.empty((B, 2 * K, N))
+        bv, bw = VW[:, :K], VW[:, K:]
+        np.multiply(ag, u, out=bv)
+        bv *= -self.dmu[:, :, None] * si
+        np.multiply(ag, u2, out=bw)
+        np.subtract(ag, bw, out=bw)
+        rows = self.bK
         if self.anywing:
-            gam2 = (gam * gam)[:, None, :]
-            iden = 1.0 / (d * d + gam2)
-            lor = (gam / np.pi)[:, None, :] * iden
-            all_ = al[:, None, :] * lor
-            prof = ag + all_
-        m = p[:, :1] + p[:, 1:2] * self.T - prof.sum(axis=2)
-        r = (m - self.Y) * self.W
-        B, N, K = g.shape
-        D = np.empty((B, N, 2 + 5 * K))
-        D[:, :, 0] = self.W
-        D[:, :, 1] = self.T * self.W
-        Wk = self.W[:, :, None]
-        dmu = (self.dmu)[:, None, :] * Wk
-        if self.anywing:
-            f = frac[:, None, :]
-            D[:, :, 2:2 + K] = -(ag * u * si + all_ * 2.0 * d * iden) * dmu
-            D[:, :, 2 + 2 * K:2 + 3 * K] = -(g + f * (lor - g)) * Wk
-            D[:, :, 2 + 3 * K:2 + 4 * K] = -area[:, None, :] * (lor - g) * (f * (1.0 - f)) * Wk
-            D[:, :, 2 + 4 * K:] = -all_ * (1.0 - 2.0 * gam2 * iden) * Wk
+            iden = d * d
+            iden += gam * gam
+            np.reciprocal(iden, out=iden)
+            lor = iden * (gam / np.pi)
+            m -= (al.transpose(0, 2, 1) @ lor)[:, 0, :]
+            all_ = lor * al
+            t = d * iden
+            t *= all_
+            t *= -2.0 * self.dmu[:, :, None]
+            bv += t
+            h = lor - g
+            t = h * -frac
+            t -= g
+            JT[rows, self.rows[2]] = t.reshape(B * K, N)
+            JT[rows, self.rows[3]] = (h * (-area * frac * (1.0 - frac))).reshape(B * K, N)
+            t = all_ * iden
+            t *= 2.0 * gam * gam
+            t -= all_
+            JT[rows, self.rows[4]] = t.reshape(B * K, N)
         else:
-            D[:, :, 2:2 + K] = -(ag * u * si) * dmu
-            D[:, :, 2 + 2 * K:2 + 3 * K] = -g * Wk
-            D[:, :, 2 + 3 * K:] = 0.0
-        D[:, :, 2 + K:2 + 2 * K] = -ag * (u2 - 1.0) * Wk
-        return r, D @ self.Map
+            JT[rows, self.rows[2]] = -g.reshape(B * K, N)
+        JT[:, P - 1] = 0.0  # the dummy parameter collects padded components
+        JT += self.MapVW @ VW
+        JT[:, 0] = 1.0
+        JT[:, 1] = self.T
+        JT *= self.W[:, None, :]
+        return (m - self.Y) * self.W, JT
 
 
-def _normal(b: _Batch, p, r, J, pmean):
+def _normal(b: _Batch, p, r, JT, pmean):
     """Cost, gradient and Gauss-Newton matrix including the prior terms."""
     rp = (p - pmean) * b.pw
     cost = np.einsum("bn,bn->b", r, r) + np.einsum("bp,bp->b", rp, rp)
-    Jt = J.transpose(0, 2, 1)
-    A = Jt @ J
-    A[:, np.arange(b.P), np.arange(b.P)] += b.pw * b.pw
-    grad = (Jt @ r[:, :, None])[:, :, 0] + b.pw * rp
+    A = JT @ JT.transpose(0, 2, 1)
+    A[:, b.diag, b.diag] += b.pw * b.pw
+    grad = (JT @ r[:, :, None])[:, :, 0] + b.pw * rp
     return cost, grad, A
 
 
@@ -289,14 +304,14 @@ def _run(b: _Batch, max_trials: int, tol: float) -> list[Solution]:
             continue
         fin = np.flatnonzero(frozen | last)
         bf = b.take(fin)
-        for i, sol in zip(fin, _finish(bf, p[fin], r[fin, :bf.N], J[fin, :bf.N], pmean[fin])):
+        for i, sol in zip(fin, _finish(bf, p[fin], r[fin, :bf.N], J[fin, :, :bf.N], pmean[fin])):
             out[alive[i]] = sol
         keep = np.flatnonzero(~(frozen | last))
         if keep.size == 0:
             break
         alive, b = alive[keep], b.take(keep)
         p, pmean, lam, cost, frozen = p[keep], pmean[keep], lam[keep], cost[keep], frozen[keep]
-        r, J, grad, A = r[keep, :b.N], J[keep, :b.N], grad[keep], A[keep]
+        r, J, grad, A = r[keep, :b.N], J[keep, :, :b.N], grad[keep], A[keep]
     return out  # type: ignore[return-value]
 
 

@@ -32,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.interpolate import BSpline
 
+from starlines.blas import one_blas_thread
 from starlines.errors import MeasurementError
 from starlines.fitting import fit_single_line
 from starlines.lines import Line, lines_in_range
@@ -247,6 +248,13 @@ def fit_continuum(
     w, good = spec.wavelength, spec.good
     if good.sum() < 20:
         raise MeasurementError("fewer than 20 usable pixels to fit a continuum", path=spec.path)
+    with one_blas_thread():
+        return _fit(spec, w, good, resolution_fwhm, line_fwhm, knot_spacing, clip_low,
+                    clip_high, max_iter)
+
+
+def _fit(spec, w, good, resolution_fwhm, line_fwhm, knot_spacing, clip_low, clip_high,
+         max_iter) -> ContinuumFit:
     scale = float(np.median(spec.flux[good]))
     y = np.where(good, spec.flux / scale, 1.0)
     dx = float(np.median(np.diff(w)))

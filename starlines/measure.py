@@ -26,6 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from starlines.blas import one_blas_thread
 from starlines.blends import FitGroup, PlannedLine, plan_lines
 from starlines.continuum import ContinuumFit, fit_continuum
 from starlines.errors import ConfigError, MeasurementError
@@ -337,6 +338,11 @@ def measure_lines(spec: Spectrum, *, continuum: ContinuumFit | None = None, line
         If ``lines`` names an unknown line id.
     """
     spec.validate()
+    with one_blas_thread():
+        return _measure_lines(spec, continuum, lines)
+
+
+def _measure_lines(spec: Spectrum, continuum: ContinuumFit | None, lines):
     cf = continuum if continuum is not None else fit_continuum(spec)
     todo = _resolve_lines(spec, lines)
     if not todo:
@@ -433,6 +439,7 @@ def measure_spectrum(spec: Spectrum, *, lines=None) -> Measurement:
     Measurement
     """
     spec.validate()
-    cf = fit_continuum(spec)
-    return Measurement(spectrum=spec, continuum=cf,
-                       table=measure_lines(spec, continuum=cf, lines=lines))
+    with one_blas_thread():
+        cf = fit_continuum(spec)
+        return Measurement(spectrum=spec, continuum=cf,
+                           table=measure_lines(spec, continuum=cf, lines=lines))
