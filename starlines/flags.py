@@ -20,6 +20,24 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Literal
 
+from starlines.nightflags import (
+    OUTLIER_FLOOR_KMS,
+    OUTLIER_NSIGMA,
+    SUBTYPE_TOLERANCE,
+    SYSTEMIC_TOLERANCE_KMS,
+    VELOCITY_FRAMES,
+    night_flags,
+    night_notes,
+    velocity_outliers,
+)
+from starlines.quality import (
+    MIN_BALMER_EW,
+    SCATTER_EXCESS,
+    effective_snr,
+    inverted_emission,
+    suspect_reasons,
+)
+
 __all__ = [
     "Flag",
     "FLAGS",
@@ -42,18 +60,26 @@ __all__ = [
     "HE_NORMAL",
     "HE_TOLERANCE",
     "MIN_SIGNIFICANCE",
+    "VELOCITY_FRAMES",
+    "night_notes",
 ]
 
-#: S/N per pixel below which a spectrum is flagged ``low-snr``. With ~0.5 A pixels and a
+#: S/N per pixel below which a spectrum is flagged ``low-snr`` (the smaller of DER_SNR and
+#: 1 / continuum scatter: DER_SNR overestimates the S/N of oversampled or smoothed spectra,
+#: see :mod:`starlines.quality`). With ~0.5 A pixels and a
 #: 2.5 A resolution element a weak line spans ~10 pixels, so sigma(EW) ~ sqrt(10) * 0.5 A /
 #: (S/N) = 1.6 A / (S/N) (pixel-sum formula, criteria.md section 7a): at S/N 50 that is
 #: 0.03 A, a third of the weakest lines the type ratios use (He II 4541 ~ 0.1 A at late O).
 LOW_SNR = 50.0
 
-#: v sin i (km/s) above which a star is a ``fast-rotator``. OB dwarfs and giants range from
-#: < 30 to ~450 km/s and most O stars rotate slower than ~150 km/s (criteria.md 6b, Simon-Diaz
-#: & Herrero 2007 abstract; [memory] for the 150); above ~200 km/s blended lines make types
-#: and velocities less certain and such stars are Oe/Be candidates (common practice).
+#: v sin i (km/s) above which a star is a ``fast-rotator``; only a *measured* value counts:
+#: below the resolution floor c FWHM / lambda (168 km/s at 2.5 A and 4471 A) the measure
+#: stage gives an upper limit (``vsini_limit``), which never raises the flag, and the
+#: composite profile of a double-lined binary is not a rotation profile. OB dwarfs and
+#: giants range from < 30 to ~450 km/s and most O stars rotate slower than ~150 km/s
+#: (criteria.md 6b, Simon-Diaz & Herrero 2007 abstract; [memory] for the 150); above
+#: ~200 km/s blended lines make types and velocities less certain and such stars are
+#: Oe/Be candidates (common practice).
 FAST_ROTATOR_VSINI = 200.0
 
 #: He II 4686 emission broader than this FWHM (A, ~1300 km/s) or stronger than this EW (A,
@@ -62,22 +88,9 @@ FAST_ROTATOR_VSINI = 200.0
 BROAD_EMISSION_FWHM = 20.0
 BROAD_EMISSION_EW = -10.0
 
-#: Robust velocity outlier: |rv - median| > OUTLIER_NSIGMA x 1.4826 x MAD of the night's
-#: velocities, and more than OUTLIER_FLOOR_KMS and 3 rv_err. 1.4826 MAD estimates sigma
-#: for a normal sample (common practice); 4 sigma keeps false alarms below 1 in 10^4 stars.
-OUTLIER_NSIGMA = 4.0
-OUTLIER_FLOOR_KMS = 20.0
-#: Departure (km/s) from the target list's expected systemic velocity that flags an
-#: outlier: runaway OB stars are defined by peculiar velocities above ~30-40 km/s
-#: (Blaauw 1961, [memory]).
-SYSTEMIC_TOLERANCE_KMS = 30.0
 #: Centroid and cross-correlation velocities disagree when they differ by more than this
 #: (km/s) and by more than 3 combined sigma: a sign of blends, emission or a companion.
 RV_METHOD_TOLERANCE_KMS = 15.0
-#: Subtypes (1.0 = one step O5 -> O6, B0 -> B1) beyond which two types "disagree".
-#: Digital types differ from photographic ones by up to 1.5 subtypes (criteria.md C4),
-#: so one full subtype is the smallest difference worth a look.
-SUBTYPE_TOLERANCE = 1.0
 #: Normal helium abundance by number, y = N(He)/N(H) (solar 0.085, Asplund et al. 2009,
 #: [memory]; hot-star model grids use 0.1, common practice), and the departure beyond
 #: which a star is helium-strong or helium-weak (also at least 3 sigma).
@@ -126,7 +139,9 @@ FLAGS: tuple[Flag, ...] = (
     Flag("double-lined", "two sets of lines: double-lined binary (SB2)",
          "the velocity stage found two velocity components", 4.0),
     Flag("fast-rotator", f"v sin i above {FAST_ROTATOR_VSINI:g} km/s",
-         f"v sin i > {FAST_ROTATOR_VSINI:g} km/s (blended lines; Oe/Be candidate)", 2.0),
+         f"measured v sin i > {FAST_ROTATOR_VSINI:g} km/s (blended lines; Oe/Be "
+         "candidate); never from an upper limit (below the resolution floor) nor from "
+         "a double-lined binary", 2.0),
     Flag("helium-strong", "helium lines too strong for the subtype",
          f"He/H by number > {HE_NORMAL:g} + {HE_TOLERANCE:g} and > 3 sigma above", 3.0),
     Flag("helium-weak", "helium lines too weak for the subtype",
@@ -144,7 +159,13 @@ FLAGS: tuple[Flag, ...] = (
     Flag("velocity-variable", "velocity varies between nights (from the archive)",
          "the archive's variability test rejects a constant velocity", 4.0, "night"),
     Flag("low-snr", f"S/N per pixel below {LOW_SNR:g}",
-         f"continuum S/N < {LOW_SNR:g}: weak-line ratios and types are unreliable", 0.0),
+         f"min(DER_SNR, 1 / continuum scatter) < {LOW_SNR:g}: weak-line ratios and types "
+         "are unreliable", 0.0),
+    Flag("suspect-data", "the data look bad although the S/N passes: check the spectrum",
+         "a hot star with H-delta, H-gamma or H-beta not detected, weaker than "
+         f"{MIN_BALMER_EW:g} A, with an EW error larger than the EW, or in emission while a "
+         f"lower Balmer line is in absorption; or continuum scatter > {SCATTER_EXCESS:g} x "
+         "the DER_SNR noise (reasons in the notes)", 0.0),
     Flag("rv-topocentric", "velocity NOT corrected to the barycentre (topocentric)",
          "mid-exposure time, RA/Dec or observatory site missing, so rv and rv_ccf are "
          "topocentric: up to +-30 km/s off (give the site with --site)", 0.0),
@@ -211,11 +232,12 @@ def _detected(line: Mapping, *, emission: bool) -> bool:
 
 def _emission_flags(lines: Sequence[Mapping]) -> set[str]:
     out: set[str] = set()
+    inverted = set(inverted_emission(lines, MIN_SIGNIFICANCE))  # not a stellar pattern
     for ln in lines:
         if not _detected(ln, emission=True):
             continue
         ident = str(ln.get("line", ""))
-        if ln.get("kind") == "balmer":
+        if ln.get("kind") == "balmer" and ident not in inverted:
             out.add("balmer-emission")
         elif ident == "HeII4686" or ident.startswith("NIII46"):
             out.add("of-emission")
@@ -266,7 +288,8 @@ def spectrum_flags(
     out |= _emission_flags(lines)
     if row.get("rv2") is not None and _finite(row.get("rv2")):
         out.add("double-lined")
-    if _finite(row.get("vsini")) and row["vsini"] > FAST_ROTATOR_VSINI:
+    if (_finite(row.get("vsini")) and not row.get("vsini_limit")
+            and row["vsini"] > FAST_ROTATOR_VSINI and "double-lined" not in out):
         out.add("fast-rotator")
     out |= _helium_flags(row)
     rs, ms = row.get("rules_subtype"), row.get("model_subtype")
@@ -279,93 +302,13 @@ def spectrum_flags(
         diff = abs(float(rv) - float(ccf))
         if diff > RV_METHOD_TOLERANCE_KMS and diff > 3 * math.hypot(e1, e2):
             out.add("velocity-methods-disagree")
-    if _finite(row.get("snr")) and row["snr"] < LOW_SNR:
+    if _finite(effective_snr(row)) and effective_snr(row) < LOW_SNR:
         out.add("low-snr")
+    if suspect_reasons(row, lines, MIN_SIGNIFICANCE):
+        out.add("suspect-data")
     he_seen = any(
         _detected(ln, emission=False) for ln in lines if ln.get("kind") in ("hei", "heii")
     )
     if not he_seen or not _finite(row.get("subtype")):
         out.add("not-hot-star")
     return split_flags(join_flags(out))
-
-
-def velocity_outliers(
-    rv: Sequence[float], rv_err: Sequence[float] | None = None
-) -> list[bool]:
-    """Robust outliers of a velocity sample (median and MAD; see :data:`OUTLIER_NSIGMA`).
-
-    Non-finite velocities are never outliers and do not enter the statistics. Fewer than
-    five finite velocities give no outliers (the MAD means little).
-    """
-    vals = [float(v) if _finite(v) else math.nan for v in rv]
-    errs = [float(e) if rv_err is not None and _finite(e) else 0.0
-            for e in (rv_err if rv_err is not None else [None] * len(vals))]
-    good = sorted(v for v in vals if not math.isnan(v))
-    if len(good) < 5:
-        return [False] * len(vals)
-    med = _median(good)
-    sigma = 1.4826 * _median(sorted(abs(v - med) for v in good))
-    out = []
-    for v, e in zip(vals, errs):
-        limit = max(OUTLIER_NSIGMA * sigma, OUTLIER_FLOOR_KMS, 3 * e)
-        out.append(not math.isnan(v) and abs(v - med) > limit)
-    return out
-
-
-def _median(sorted_vals: Sequence[float]) -> float:
-    n = len(sorted_vals)
-    mid = n // 2
-    return sorted_vals[mid] if n % 2 else 0.5 * (sorted_vals[mid - 1] + sorted_vals[mid])
-
-
-def night_flags(
-    rows: Sequence[Mapping],
-    *,
-    expected: Sequence[Mapping | None] | None = None,
-    variable: Iterable[str] = (),
-) -> list[list[str]]:
-    """Decide the night-scope flags for every row.
-
-    Parameters
-    ----------
-    rows : sequence of mapping
-        All result rows of the night (failed ones included; they get no night flags).
-    expected : sequence of mapping or None, optional
-        Per row, the matched target-list entry with optional ``subtype`` (catalogue subtype
-        number) and ``rv`` (expected systemic velocity, km/s); None when unmatched.
-    variable : iterable of str
-        Object names the archive found velocity-variable.
-
-    Returns
-    -------
-    list of list of str
-        Night flags per row, same order as ``rows``.
-    """
-    expected = expected if expected is not None else [None] * len(rows)
-    variable = set(variable)
-    ok = [r.get("status") == "ok" and "double-lined" not in split_flags(r.get("flags", ""))
-          for r in rows]
-    sample = [r.get("rv") if use else None for r, use in zip(rows, ok)]
-    errs = [r.get("rv_err") for r in rows]
-    outlier = velocity_outliers(sample, errs)
-    result = []
-    for row, exp, out in zip(rows, expected, outlier):
-        found: set[str] = set()
-        if row.get("status") != "ok":
-            result.append([])
-            continue
-        rv = row.get("rv")
-        if out:
-            found.add("velocity-outlier")
-        if exp and _finite(exp.get("rv")) and _finite(rv):
-            err = float(row.get("rv_err")) if _finite(row.get("rv_err")) else 0.0
-            if abs(float(rv) - float(exp["rv"])) > max(SYSTEMIC_TOLERANCE_KMS, 3 * err):
-                found.add("velocity-outlier")
-        sub = row.get("subtype")
-        if exp and _finite(exp.get("subtype")) and _finite(sub):
-            if abs(float(sub) - float(exp["subtype"])) > SUBTYPE_TOLERANCE:
-                found.add("catalogue-type-differs")
-        if row.get("object") and row["object"] in variable:
-            found.add("velocity-variable")
-        result.append(split_flags(join_flags(found)))
-    return result

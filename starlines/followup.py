@@ -12,7 +12,8 @@ The score of a spectrum is
   ``min(1, S/N / 100)`` (S/N 100 per pixel makes every line of the type criteria a
   > 10 sigma detection, so better data adds little; common practice), times 0.5 when the
   classifier itself was unsure (probability < 0.5), times 0.5 when the star is not a hot
-  star at all. Failed spectra have confidence 0.
+  star at all, times 0.5 when the data look bad (``suspect-data``). Failed spectra have
+  confidence 0.
 
 The rank is 1 for the highest score; ties are broken by S/N (higher first) and then by
 file name, so the list is reproducible.
@@ -58,8 +59,10 @@ def confidence(row: Mapping) -> float:
     conf = min(1.0, max(snr, 0.0) / SNR_FULL_CONFIDENCE)
     if _num(row.get("probability"), 1.0) < 0.5:
         conf *= 0.5
-    if "not-hot-star" in split_flags(row.get("flags", "")):
-        conf *= 0.5
+    flags = split_flags(row.get("flags", ""))
+    for doubt in ("not-hot-star", "suspect-data"):
+        if doubt in flags:
+            conf *= 0.5
     return conf
 
 
@@ -78,6 +81,8 @@ def reason(row: Mapping) -> str:
     sure = f"S/N {snr:.0f}" if math.isfinite(snr) else "S/N unknown"
     if _num(row.get("probability"), 1.0) < 0.5:
         sure += ", uncertain type"
+    if "suspect-data" in split_flags(row.get("flags", "")):
+        sure += ", suspect data"
     return f"{found} ({sure})"
 
 

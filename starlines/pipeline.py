@@ -19,10 +19,19 @@ import re
 import time
 from dataclasses import dataclass, field
 
-import numpy as np
-
 from starlines.errors import StarlinesError
-from starlines.flags import join_flags, spectrum_flags
+from starlines.flags import MIN_SIGNIFICANCE, join_flags, spectrum_flags
+from starlines.quality import continuum_snr, noise_note, suspect_reasons
+from starlines.resultrows import (
+    RESULT_COLUMNS,
+    RESULT_UNITS,
+    empty_row,
+    failed_row,
+    meta_values,
+    one_line,
+    table_rows,
+    update_row,
+)
 
 __all__ = [
     "AnalysisOptions",
@@ -33,36 +42,12 @@ __all__ = [
     "RESULT_COLUMNS",
     "RESULT_UNITS",
     "figure_name",
+    "analysis_units",
+    "empty_row",
+    "one_line",
+    "table_rows",
 ]
 
-#: Columns of a result row, in table order (DEVELOPERS.md "Result rows", then extensions).
-RESULT_COLUMNS: tuple[str, ...] = (
-    "file", "label", "object", "status", "error", "mjd_mid", "ra", "dec", "snr", "medium",
-    "medium_assumed", "sptype", "subtype", "subtype_err", "lumclass", "teff", "teff_err",
-    "logg", "logg_err", "he_abundance", "vsini", "vsini_err", "rv", "rv_err", "rv_n_lines",
-    "rv_ccf", "rv_ccf_err", "rv_frame", "barycentric_correction", "rv2", "flags",
-    "followup_score", "followup_rank",
-    # extensions
-    "he_abundance_err", "rules_subtype", "model_subtype", "probability", "followup_reason",
-    "catalogue_type", "catalogue_subtype", "catalogue_rv", "class_notes", "notes", "figure",
-)
-
-#: Units of the result columns that have one.
-RESULT_UNITS: dict[str, str] = {
-    "mjd_mid": "d", "ra": "deg", "dec": "deg", "teff": "K", "teff_err": "K",
-    "logg": "dex", "logg_err": "dex", "vsini": "km / s", "vsini_err": "km / s",
-    "rv": "km / s", "rv_err": "km / s", "rv_ccf": "km / s", "rv_ccf_err": "km / s",
-    "barycentric_correction": "km / s", "rv2": "km / s", "catalogue_rv": "km / s",
-}
-
-_FLOAT_COLUMNS = {
-    "mjd_mid", "ra", "dec", "snr", "subtype", "subtype_err", "teff", "teff_err", "logg",
-    "logg_err", "he_abundance", "he_abundance_err", "vsini", "vsini_err", "rv", "rv_err",
-    "rv_ccf", "rv_ccf_err", "barycentric_correction", "rv2", "followup_score",
-    "rules_subtype", "model_subtype", "probability", "catalogue_subtype", "catalogue_rv",
-}
-_INT_COLUMNS = {"rv_n_lines", "followup_rank"}
-_BOOL_COLUMNS = {"medium_assumed"}
 
 
 @dataclass(frozen=True)
@@ -89,6 +74,26 @@ class AnalysisOptions:
     site: str | None = None
     site_config: str | None = None
 
+    def fingerprint(self) -> str:
+        """Short hash of everything that changes the results (not ``figure_dir``).
+
+        The medium options, the site, the site file's path *and content*, and the package
+        version: the resume journal reuses a file's rows only under the same fingerprint.
+        """
+        import hashlib
+        import json
+
+        from starlines import __version__
+
+        site_file = ""
+        if self.site_config:
+            site_file = file_checksum(self.site_config) or "unreadable"
+        text = json.dumps({"medium": self.medium, "default_medium": self.default_medium,
+                           "site": self.site, "site_config": self.site_config,
+                           "site_config_sha256": site_file, "version": __version__},
+                          sort_keys=True)
+        return hashlib.sha256(text.encode()).hexdigest()[:16]
+
 
 @dataclass
 class FileResult:
@@ -99,7 +104,8 @@ class FileResult:
     path : str
         The file.
     key : dict
-        ``{"path", "size", "mtime_ns"}``: identifies this version of the file for resume.
+        ``{"path", "size", "mtime_ns", "options"}``: identifies this version of the file
+        and the analysis options (:meth:`AnalysisOptions.fingerprint`) for resume.
     rows : list of dict
         One result row per spectrum in the file (at least one, failed or not).
     lines : list of dict
@@ -146,97 +152,6 @@ def file_key(path: str | os.PathLike) -> dict:
     return {"path": path, "size": int(st.st_size), "mtime_ns": int(st.st_mtime_ns)}
 
 
-def empty_row(path: str, label: str = "") -> dict:
-    """A result row with every column present: NaN, empty strings, zeros."""
-    row: dict = {}
-    for col in RESULT_COLUMNS:
-        if col in _FLOAT_COLUMNS:
-            row[col] = math.nan
-        elif col in _INT_COLUMNS:
-            row[col] = 0
-        elif col in _BOOL_COLUMNS:
-            row[col] = False
-        else:
-            row[col] = ""
-    row.update(file=os.fspath(path), label=label, status="ok")
-    return row
-
-
-def one_line(exc: BaseException) -> str:
-    """The first line of an exception message, with its class when it is not ours."""
-    text = str(getattr(exc, "reason", None) or exc).strip().splitlines()
-    text = text[0] if text else ""
-    if isinstance(exc, StarlinesError):
-        return text or type(exc).__name__
-    return f"{type(exc).__name__}: {text}".rstrip(": ")
-
-
-def failed_row(path: str, label: str, exc: BaseException | str, partial: dict | None = None):
-    """A failed result row carrying the one-line cause (and any partial values)."""
-    row = empty_row(path, label)
-    if partial:
-        row.update({k: v for k, v in partial.items() if k in row})
-    row.update(status="failed", error=exc if isinstance(exc, str) else one_line(exc),
-               flags="failed")
-    return row
-
-
-def _clean(value):
-    """Plain Python scalar for a table cell (Quantities lose their unit, None -> NaN)."""
-    if value is None:
-        return math.nan
-    value = getattr(value, "value", value)
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
-
-
-def _update(row: dict, values: dict) -> None:
-    for key, value in values.items():
-        if key == "flags":
-            continue
-        value = _clean(value)
-        if key in _FLOAT_COLUMNS:
-            try:
-                value = float(value)
-            except (TypeError, ValueError):
-                value = math.nan
-        elif key in _INT_COLUMNS:
-            try:
-                value = int(value)
-            except (TypeError, ValueError):
-                value = 0
-        elif isinstance(value, (list, tuple, np.ndarray)):
-            continue  # e.g. rv_components: not a table cell
-        row[key] = value
-
-
-def _meta_values(spec) -> dict:
-    meta = spec.meta
-    return {
-        "object": meta.object or "", "mjd_mid": meta.mjd_mid, "ra": meta.ra_deg,
-        "dec": meta.dec_deg, "medium": spec.medium, "medium_assumed": bool(spec.medium_assumed),
-    }
-
-
-def table_rows(table, file: str, label: str) -> tuple[list[dict], dict]:
-    """Per-line rows of a line table: plain values, plus the units of its columns."""
-    units, cols = {}, {}
-    for name in table.colnames:
-        col = table[name]
-        unit = getattr(col, "unit", None)
-        if unit is not None and str(unit):
-            units[name] = str(unit)
-        data = getattr(col, "value", col)
-        cols[name] = np.asarray(data).tolist()
-    n = len(table)
-    rows = [{"file": file, "label": label} for _ in range(n)]
-    for name, values in cols.items():
-        for row, v in zip(rows, values):
-            row[name] = v
-    return rows, units
-
-
 def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileResult) -> None:
     """Run measure -> classify -> velocity -> flags on one spectrum; append its rows."""
     from starlines.classify import classify
@@ -244,7 +159,7 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
     from starlines.velocity import measure_velocity
 
     row = empty_row(path, spec.label)
-    row.update(_meta_values(spec))
+    row.update(meta_values(spec))
     try:
         measurement = measure_spectrum(spec)
     except Exception as exc:  # noqa: BLE001 - any failure of a stage is recorded, not raised
@@ -252,10 +167,13 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
         return
     table = measurement.table
     meta = table.meta
-    _update(row, {k: meta.get(k) for k in ("snr", "vsini", "vsini_err") if k in meta})
+    update_row(row, {k: meta.get(k) for k in ("snr", "vsini", "vsini_err", "vsini_floor",
+                                            "continuum_scatter") if k in meta})
+    row["vsini_limit"] = bool(meta.get("vsini_upper_limit", False))
     snr = getattr(getattr(measurement, "continuum", None), "snr", None)
     if not _finite(row["snr"]) and snr is not None:
         row["snr"] = float(snr)
+    row["snr_continuum"] = continuum_snr(row)
     lines, units = table_rows(table, row["file"], row["label"])
     result.lines.extend(lines)
     result.line_units.update(units)
@@ -263,7 +181,7 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
     classification = None
     try:
         classification = classify(measurement)
-        _update(row, classification.as_row())
+        update_row(row, classification.as_row())
         stage_flags += list(getattr(classification, "flags", []) or [])
     except Exception as exc:  # noqa: BLE001
         notes.append(f"classification: {one_line(exc)}")
@@ -271,16 +189,29 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
         velocity = measure_velocity(spec, table, classification=classification,
                                     continuum=getattr(measurement, "continuum", None),
                                     site=options.site, site_config=options.site_config)
-        _update(row, velocity.as_row())
+        update_row(row, velocity.as_row())
         stage_flags += list(getattr(velocity, "flags", []) or [])
     except Exception as exc:  # noqa: BLE001
         notes.append(f"velocity: {one_line(exc)}")
+    row["flags"] = join_flags(spectrum_flags(row, lines, stage_flags))
+    notes += _quality_notes(row, lines)
     if notes:
         row["notes"] = "; ".join(notes)
-    row["flags"] = join_flags(spectrum_flags(row, lines, stage_flags))
     if options.figure_dir:
         row["figure"] = _figure(measurement, row, lines, options.figure_dir, notes)
     result.rows.append(row)
+
+
+def _quality_notes(row: dict, lines: list[dict]) -> list[str]:
+    """Notes of the data-quality checks (:mod:`starlines.quality`)."""
+    out = []
+    reasons = suspect_reasons(row, lines, MIN_SIGNIFICANCE)
+    if reasons:
+        out.append("suspect data: " + ", ".join(reasons))
+    note = noise_note(row)
+    if note:
+        out.append(note)
+    return out
 
 
 def _finite(x) -> bool:
@@ -313,6 +244,28 @@ def _figure(measurement, row, lines, figure_dir, notes) -> str:
     return name
 
 
+def analysis_units(spectra: list) -> list:
+    """The spectra of one file to analyse, one result row each.
+
+    A single spectrum is analysed as it is. Several spectra that do not overlap by more
+    than half their range are echelle orders (IRAF multispec apertures, table rows of
+    orders): they are merged without resampling (:func:`starlines.readers.merge_orders`)
+    and analysed as one spectrum labelled ``merged N orders``, because single orders rarely
+    hold both lines of a classification ratio and orders without any line would only give
+    failed rows. Spectra that do overlap (fibers of a multi-object file, repeated
+    exposures; the same test :func:`~starlines.readers.merge_orders` makes) are analysed
+    one row each.
+    """
+    from starlines.readers import merge_orders
+
+    if len(spectra) < 2:
+        return list(spectra)
+    merged = merge_orders(spectra)
+    if any(merged is s for s in spectra):  # overlapping: fibers or repeats, not orders
+        return list(spectra)
+    return [merged.validate()]
+
+
 def analyse_file(path: str | os.PathLike, options: AnalysisOptions | None = None) -> FileResult:
     """Analyse every spectrum of one file; never raise for bad input.
 
@@ -326,15 +279,17 @@ def analyse_file(path: str | os.PathLike, options: AnalysisOptions | None = None
     Returns
     -------
     FileResult
-        One row per spectrum (per order / fiber when the file holds several); a file that
-        cannot be read gives one failed row with an empty label.
+        One row per spectrum of :func:`analysis_units`: echelle orders merged into one
+        row, fibers one row each; a file that cannot be read gives one failed row with
+        an empty label.
     """
     from starlines.readers import read_spectra
 
     start = time.perf_counter()
     options = options or AnalysisOptions()
     path = os.fspath(path)
-    result = FileResult(path=path, key=file_key(path), checksum=file_checksum(path))
+    key = dict(file_key(path), options=options.fingerprint())
+    result = FileResult(path=path, key=key, checksum=file_checksum(path))
     try:
         kwargs = {"default_medium": options.default_medium}
         if options.medium:
@@ -342,14 +297,19 @@ def analyse_file(path: str | os.PathLike, options: AnalysisOptions | None = None
         spectra = read_spectra(path, **kwargs)
         if not spectra:
             raise StarlinesError("the file holds no spectrum", path=path)
+        units = analysis_units(spectra)
     except Exception as exc:  # noqa: BLE001 - every failure becomes a row
         result.rows.append(failed_row(path, "", exc))
         result.seconds = time.perf_counter() - start
         return result
-    for spec in spectra:
+    for spec in units:
+        n_rows = len(result.rows)
         try:
             _analyse_spectrum(path, spec, options, result)
         except Exception as exc:  # noqa: BLE001
             result.rows.append(failed_row(path, spec.label, exc))
+        n_orders = len(spectra) if len(units) == 1 and len(spectra) > 1 else 1
+        for row in result.rows[n_rows:]:
+            row["n_orders"] = n_orders
     result.seconds = time.perf_counter() - start
     return result

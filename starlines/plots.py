@@ -173,6 +173,9 @@ def _title(row: Mapping) -> str:
     rv = row.get("rv")
     rv_txt = (f"rv {rv:+.1f} +- {row.get('rv_err', math.nan):.1f} km/s"
               if _finite(rv) else "rv n/a")
+    vsini = row.get("vsini")
+    if _finite(vsini):
+        rv_txt += f", v sin i {'< ' if row.get('vsini_limit') else ''}{vsini:.0f} km/s"
     flags = row.get("flags") or "no flags"
     label = f" [{row['label']}]" if row.get("label") else ""
     return f"{name}{label}: {sptype} (provisional), {rv_txt}, S/N {row.get('snr', 0):.0f}\n" \

@@ -3,8 +3,14 @@
 Everything is inside the file (images as base64 ``data:`` URIs, a few lines of CSS and a
 small inline script that sorts tables), so it opens offline from a disc or a mail
 attachment. Order of the page: the provisional-types statement and summary counts, the
-follow-up list, the table of all spectra (click a header to sort), night-level plots, the
-failures with their causes, the flag legend, and the per-spectrum figures.
+follow-up list, the table of all spectra (click a header to sort; each star links to its
+section), night-level plots, the failures with their causes, the flag legend with the
+night's counts, and one section per spectrum (values, flags explained, notes, the lines
+measured, the figure).
+
+Precision shown (common practice: one digit beyond the typical error, no more):
+velocities 0.1 km/s (v sin i 1 km/s, an upper limit as ``< 168``), Teff 100 K, log g and
+He/H 0.01, EWs 0.01 A, S/N 1. The tables (``results.ecsv``) keep full precision.
 """
 
 from __future__ import annotations
@@ -34,6 +40,10 @@ tr.failed td{color:#922b21}.flags{color:#922b21}
 .plots img,.stars img{max-width:100%;height:auto;border:1px solid #eee;margin:.3em 0}
 .plots{display:flex;flex-wrap:wrap;gap:1em}.plots figure{margin:0;flex:1 1 360px}
 figcaption{font-size:.8em;color:#555}
+section.star{border-top:1px solid #ccd;margin-top:1.2em}section.star h3{margin:.5em 0 .2em}
+dl.values{display:grid;grid-template-columns:max-content 1fr;gap:.1em 1em;font-size:.85em}
+dl.values dt{color:#555}dl.values dd{margin:0}
+table.lines{width:auto;font-size:.78em}
 """
 
 _JS = """
@@ -73,6 +83,31 @@ def _td_num(value, fmt: str) -> str:
     return f'<td class="num" data-sort="{sort}">{text}</td>'
 
 
+def _rounded(value, step: float) -> float:
+    """``value`` rounded to a multiple of ``step`` (NaN stays NaN)."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return math.nan
+    return round(v / step) * step if math.isfinite(v) else math.nan
+
+
+def teff_text(value) -> str:
+    """Teff to the nearest 100 K, e.g. ``31200``; '' when unknown."""
+    return _num(_rounded(value, 100.0), ".0f")
+
+
+def vsini_text(row: Mapping) -> str:
+    """v sin i to 1 km/s; an upper limit (``vsini_limit``) as ``< 168``."""
+    text = _num(row.get("vsini"), ".0f")
+    return f"&lt; {text}" if text and row.get("vsini_limit") else text
+
+
+def _td_text(html_text: str, sort) -> str:
+    sort_text = _num(sort, ".6g") or "-1e99"
+    return f'<td class="num" data-sort="{sort_text}">{html_text}</td>'
+
+
 def _img(png: bytes, alt: str, cls: str = "") -> str:
     data = base64.b64encode(png).decode("ascii")
     c = f' class="{cls}"' if cls else ""
@@ -85,7 +120,9 @@ def _star_name(row: Mapping) -> str:
 
 
 def _anchor(row: Mapping) -> str:
-    return "star-" + "".join(c if c.isalnum() else "-" for c in str(row.get("figure", "")))
+    """Id of a spectrum's section: from the file name and label (unique in a night)."""
+    key = f"{os.path.basename(str(row.get('file', '')))}-{row.get('label') or ''}"
+    return "star-" + "".join(c if c.isalnum() else "-" for c in key).strip("-")
 
 
 def _summary(rows: Sequence[Mapping], followup, ignored) -> str:
@@ -107,8 +144,7 @@ def _followup_table(followup: Sequence[Mapping]) -> str:
         return "<p>No spectrum calls for follow-up.</p>"
     body = []
     for r in followup:
-        link = f'<a href="#{_anchor(r)}">{_e(_star_name(r))}</a>' if r.get("figure") else \
-            _e(_star_name(r))
+        link = f'<a href="#{_anchor(r)}">{_e(_star_name(r))}</a>'
         body.append(
             f"<tr>{_td_num(r['followup_rank'], '.0f')}<td>{link}</td><td>{_e(r.get('sptype'))}"
             f"</td>{_td_num(r.get('rv'), '+.1f')}{_td_num(r['followup_score'], '.2f')}"
@@ -119,23 +155,22 @@ def _followup_table(followup: Sequence[Mapping]) -> str:
 
 
 _ALL_COLUMNS = ("star", "file", "status", "type", "Teff [K]", "log g", "v sin i [km/s]",
-                "rv [km/s]", "rv err", "S/N", "catalogue type", "flags", "rank")
+                "rv [km/s]", "rv err", "frame", "S/N", "catalogue type", "flags", "rank")
 
 
 def _all_table(rows: Sequence[Mapping]) -> str:
     body = []
     for r in rows:
-        name = _e(_star_name(r))
-        if r.get("figure"):
-            name = f'<a href="#{_anchor(r)}">{name}</a>'
+        name = f'<a href="#{_anchor(r)}">{_e(_star_name(r))}</a>'
         cls = "spectrum failed" if r["status"] == "failed" else "spectrum"
         rank = r.get("followup_rank") or ""
         body.append(
             f'<tr class="{cls}"><td>{name}</td><td>{_e(os.path.basename(str(r["file"])))}</td>'
             f"<td>{_e(r['status'])}</td><td data-sort=\"{_num(r.get('subtype'), '.2f') or 99}\">"
-            f"{_e(r.get('sptype'))}</td>{_td_num(r.get('teff'), '.0f')}"
-            f"{_td_num(r.get('logg'), '.2f')}{_td_num(r.get('vsini'), '.0f')}"
+            f"{_e(r.get('sptype'))}</td>{_td_num(_rounded(r.get('teff'), 100.0), '.0f')}"
+            f"{_td_num(r.get('logg'), '.2f')}{_td_text(vsini_text(r), r.get('vsini'))}"
             f"{_td_num(r.get('rv'), '+.1f')}{_td_num(r.get('rv_err'), '.1f')}"
+            f"<td>{_e(r.get('rv_frame'))}</td>"
             f"{_td_num(r.get('snr'), '.0f')}<td>{_e(r.get('catalogue_type'))}</td>"
             f'<td class="flags">{_e(str(r.get("flags", "")).replace(",", ", "))}</td>'
             f'<td class="num" data-sort="{rank or 1e9}">{rank}</td></tr>')
@@ -166,13 +201,15 @@ def _failures(rows: Sequence[Mapping], ignored: Sequence[str], night_dir: str | 
     return "".join(parts)
 
 
-def _legend() -> str:
-    from starlines.flags import FLAGS
+def _legend(rows: Sequence[Mapping] = ()) -> str:
+    from starlines.flags import FLAGS, split_flags
 
-    return "<table id=\"flag-legend\"><thead><tr><th>flag</th><th>meaning</th><th>rule</th>" \
-           "</tr></thead><tbody>" + "".join(
-               f"<tr><td>{_e(f.name)}</td><td>{_e(f.description)}</td><td>{_e(f.rule)}</td>"
-               "</tr>" for f in FLAGS) + "</tbody></table>"
+    counts = Counter(f for r in rows for f in split_flags(r.get("flags", "")))
+    return ("<table id=\"flag-legend\"><thead><tr><th>flag</th><th>meaning</th><th>rule</th>"
+            "<th>follow-up weight</th><th>this night</th></tr></thead><tbody>" + "".join(
+                f"<tr><td>{_e(f.name)}</td><td>{_e(f.description)}</td><td>{_e(f.rule)}</td>"
+                f'<td class="num">{f.interest:g}</td><td class="num">{counts[f.name]}</td>'
+                "</tr>" for f in FLAGS) + "</tbody></table>")
 
 
 def night_plots(rows: Sequence[Mapping]) -> dict[str, bytes]:
@@ -198,21 +235,6 @@ def night_plots(rows: Sequence[Mapping]) -> dict[str, bytes]:
     return out
 
 
-def _star_figures(rows: Sequence[Mapping], figure_dir: str | None) -> str:
-    if not figure_dir:
-        return "<p>Figures were not made for this run.</p>"
-    parts = []
-    for r in rows:
-        path = os.path.join(figure_dir, str(r.get("figure") or ""))
-        if r.get("figure") and os.path.isfile(path):
-            with open(path, "rb") as fh:
-                png = fh.read()
-            parts.append(f'<figure id="{_anchor(r)}">{_img(png, _star_name(r), "star")}'
-                         f"<figcaption>{_e(_star_name(r))}: {_e(r.get('sptype'))} "
-                         f"{_e(r.get('flags'))}</figcaption></figure>")
-    return '<div class="stars">' + "".join(parts) + "</div>"
-
-
 def render_report(result, *, night_dir: str | None = None, figure_dir: str | None = None,
                   plots: Mapping[str, bytes] | None = None) -> str:
     """The report as one HTML string.
@@ -220,7 +242,7 @@ def render_report(result, *, night_dir: str | None = None, figure_dir: str | Non
     Parameters
     ----------
     result : starlines.triage.TriageResult
-        Rows, follow-up list and ignored files of the night.
+        Rows, line rows, follow-up list and ignored files of the night.
     night_dir : str, optional
         Night folder (shown in the title; ignored files are shown relative to it).
     figure_dir : str, optional
@@ -228,6 +250,8 @@ def render_report(result, *, night_dir: str | None = None, figure_dir: str | Non
     plots : mapping of str to bytes, optional
         Night-level plots; :func:`night_plots` by default.
     """
+    from starlines.report_stars import star_sections
+
     rows, followup = result.rows, result.followup
     plots = night_plots(rows) if plots is None else plots
     title = f"Night report: {os.path.basename(night_dir.rstrip(os.sep)) if night_dir else ''}"
@@ -248,8 +272,8 @@ def render_report(result, *, night_dir: str | None = None, figure_dir: str | Non
         f"<h2>All spectra</h2><p>Click a column header to sort.</p>{_all_table(rows)}"
         f'<h2>Night plots</h2><div class="plots">{plot_html}</div>'
         f"<h2>Failures</h2>{_failures(rows, result.ignored, night_dir)}"
-        f"<h2>Flags</h2>{_legend()}"
-        f"<h2>Spectra</h2>{_star_figures(rows, figure_dir)}"
+        f"<h2>Flags</h2>{_legend(rows)}"
+        f"<h2>Spectra</h2>{star_sections(rows, result.lines, figure_dir)}"
         f"<script>{_JS}</script></body></html>\n"
     )
 

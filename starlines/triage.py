@@ -10,11 +10,15 @@
 - ``.journal/files.jsonl``, the resume journal.
 
 **Resume.** Each finished file's result (rows, line rows, the file's size and modification
-time) is appended to the journal as one JSON line, flushed and fsynced before the next file
-is recorded, so a run killed midway loses no finished file. A re-run into the same folder
-reuses every journal entry whose file still has the same path, size and modification time
-(and whose figures exist, when figures are wanted); ``redo=True`` starts a fresh journal.
-The tables are always rewritten from the journal at the end.
+time, the fingerprint of the analysis options) is appended to the journal as one JSON line,
+flushed and fsynced before the next file is recorded, so a run killed midway loses no
+finished file. A re-run into the same folder reuses every journal entry whose file still
+has the same path, size and modification time *and* was analysed with the same options
+(:meth:`starlines.pipeline.AnalysisOptions.fingerprint`: medium, default medium, site, site
+file and its content, package version), and whose figures exist when figures are wanted;
+any other file is analysed again. Engine failures (a crashed worker) are never reused.
+``redo=True`` starts a fresh journal. The tables are always rewritten from the journal at
+the end.
 """
 
 from __future__ import annotations
@@ -48,7 +52,7 @@ SPECTRUM_SUFFIXES = (".fits", ".fit", ".fts", ".fits.gz", ".fit.gz", ".fts.gz", 
                      ".dat", ".csv", ".tsv", ".ascii", ".spec", ".ecsv")
 #: Table formats of ``formats=`` and their file extensions.
 TABLE_FORMATS = {"ecsv": ".ecsv", "csv": ".csv", "fits": ".fits"}
-_JOURNAL_VERSION = 1
+_JOURNAL_VERSION = 2  # 2: the key holds the options fingerprint
 
 
 @dataclass
@@ -278,6 +282,16 @@ def _write_tables(out_dir, rows, lines, line_units, followup, formats) -> dict:
     return written
 
 
+def _check_media(medium, default_medium) -> None:
+    from starlines.readers_common import MEDIA
+
+    if medium is not None and medium not in MEDIA:
+        raise ConfigError(f"medium must be one of {', '.join(MEDIA)}, got {medium!r}")
+    if default_medium not in MEDIA:
+        raise ConfigError(f"default medium must be one of {', '.join(MEDIA)}, "
+                          f"got {default_medium!r}")
+
+
 def _check_formats(formats: Sequence[str]) -> list[str]:
     formats = [f.strip().lower() for f in formats if f.strip()]
     bad = [f for f in formats if f not in TABLE_FORMATS]
@@ -303,6 +317,8 @@ def triage_night(
     report: bool = True,
     site: str | None = None,
     site_config: str | os.PathLike | None = None,
+    medium: str | None = None,
+    default_medium: str = "air",
 ) -> TriageResult:
     """Triage a night folder; see the module docstring for outputs and resume.
 
@@ -334,15 +350,20 @@ def triage_night(
         Observatory of every spectrum for the barycentric correction (overrides headers).
     site_config : str or path-like, optional
         User TOML file with extra ``[sites.<name>]`` entries.
+    medium : {"air", "vacuum"}, optional
+        Force the wavelength medium of every file (overrides the headers).
+    default_medium : {"air", "vacuum"}
+        Medium assumed for files that do not state it.
 
     Returns
     -------
     TriageResult
     """
-    from starlines.flags import join_flags, night_flags, split_flags
+    from starlines.flags import join_flags, night_flags, night_notes, split_flags
     from starlines.followup import rank_rows
 
     formats = _check_formats(formats)
+    _check_media(medium, default_medium)
     site_config = os.fspath(site_config) if site_config else None
     if site:
         from starlines.sites import find_site
@@ -360,9 +381,12 @@ def triage_night(
     if redo:
         journal.reset()
     old = journal.load()
+    options = AnalysisOptions(figure_dir=figure_dir, site=site, site_config=site_config,
+                              medium=medium, default_medium=default_medium)
+    fingerprint = options.fingerprint()
     records, todo = {}, []
     for path in paths:
-        key = file_key(path)
+        key = dict(file_key(path), options=fingerprint)
         if _reusable(old.get(key["path"]), key, figure_dir):
             records[key["path"]] = old[key["path"]]
         else:
@@ -371,8 +395,7 @@ def triage_night(
              len(paths), len(records), len(todo), len(ignored))
     if todo:
         records.update(_analyse_all(
-            todo, AnalysisOptions(figure_dir=figure_dir, site=site, site_config=site_config),
-            workers=workers,
+            todo, options, workers=workers,
             scheduler=scheduler, scheduler_file=scheduler_file, progress=progress,
             journal=journal))
     rows, lines, line_units = [], [], {}
@@ -387,6 +410,9 @@ def triage_night(
                                   checksums, os.path.basename(night_dir))
     for row, extra in zip(rows, night_flags(rows, expected=expected, variable=variable)):
         row["flags"] = join_flags(split_flags(row["flags"]) + extra)
+    for row, note in zip(rows, night_notes(rows, expected=expected)):
+        if note:
+            row["notes"] = "; ".join(n for n in (row.get("notes"), note) if n)
     followup = rank_rows(rows)
     result = TriageResult(out_dir=out_dir, rows=rows, lines=lines, followup=followup,
                           ignored=ignored, analysed=len(todo),

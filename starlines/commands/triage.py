@@ -34,6 +34,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "(overrides the file headers)")
     parser.add_argument("--site-config", metavar="FILE",
                         help="TOML file with extra [sites.<name>] entries")
+    parser.add_argument("--medium", choices=("air", "vacuum"),
+                        help="wavelength medium of every file (overrides the headers)")
+    parser.add_argument("--default-medium", choices=("air", "vacuum"), default="air",
+                        help="medium assumed when a file does not state it (default: air)")
     parser.add_argument("--format", default="ecsv", metavar="LIST",
                         help="table formats, comma-separated: ecsv, csv, fits "
                              "(default: ecsv)")
@@ -51,7 +55,7 @@ def run(args: argparse.Namespace) -> int:
         figures=not args.no_figures, archive=args.archive, redo=args.redo,
         scheduler=args.scheduler, scheduler_file=args.scheduler_file,
         formats=args.format.split(","), progress=not quiet, site=args.site,
-        site_config=args.site_config,
+        site_config=args.site_config, medium=args.medium, default_medium=args.default_medium,
     )
     print(f"{len(result.rows)} spectra ({result.analysed} files analysed, {result.reused} "
           f"reused), {result.n_failed} failed, {len(result.followup)} for follow-up")

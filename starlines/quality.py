@@ -1,0 +1,171 @@
+"""Data-quality checks: spectra that pass the S/N cut and still cannot be trusted.
+
+Two signs of bad data in a hot-star spectrum, both decided from one result row and its line
+rows (the ``suspect-data`` flag of :mod:`starlines.flags`):
+
+1. **The strong Balmer lines fail.** Every O and early-B star has H-delta, H-gamma and
+   H-beta in clear absorption (see :data:`MIN_BALMER_EW`). One of them not detected, weaker
+   than that, measured with an error larger than its value, or in emission while a
+   lower-series Balmer line is in absorption (no star shows that: emission decreases up the
+   series, H-alpha first) means the spectrum, its continuum or its wavelength scale is bad.
+   H-beta alone may be filled in by wind emission in supergiants and Of stars; it is not
+   judged when the star shows emission (He II 4686, N III or H-alpha).
+2. **The continuum scatters far more than the noise.** :func:`starlines.snr.der_snr` (DER_SNR,
+   Stoehr et al. 2008) estimates the noise from pixel-to-pixel differences over 4 pixels. It
+   assumes independent pixels: an oversampled or smoothed spectrum (MILES: 0.9 A pixels at
+   2.5 A FWHM, resampled; sharply rebinned data) has correlated pixel noise, so DER_SNR
+   *overestimates* its S/N. The robust scatter of the normalized continuum
+   (``continuum_scatter``) includes correlated noise, ripples and weak lines, so its inverse
+   is a pessimistic S/N; :func:`continuum_snr` returns it and :func:`effective_snr` the
+   smaller of the two, which is what ``low-snr`` uses. A ratio scatter x DER_SNR above
+   :data:`SCATTER_EXCESS` is flagged as suspect data.
+
+Measured on the spectra of this project (``data`` below): white-noise synthetic spectra have
+scatter x DER_SNR = 0.94-1.17; the 20 MILES O/B spectra of the reference folder 1.45-3.07.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+
+__all__ = [
+    "MIN_BALMER_EW",
+    "SCATTER_EXCESS",
+    "CORRELATED_NOISE_RATIO",
+    "BALMER_CHECKED",
+    "continuum_snr",
+    "effective_snr",
+    "suspect_reasons",
+    "noise_note",
+]
+
+#: Smallest absorption EW (A) of H-delta, H-gamma or H-beta accepted in an O/early-B star.
+#: Hot-star Balmer lines are ~2 A at the earliest O types and 3-9 A at B0-B3 ([memory]);
+#: data: the weakest among the 19 good MILES O/B spectra of the reference folder is
+#: H-beta 0.76 A (HD 41117, B2 Ia, wind-filled) and H-gamma 1.11 A (HD 190603, B1.5 Ia).
+MIN_BALMER_EW = 0.5
+#: Continuum scatter x DER_SNR above which the continuum varies far more than the noise
+#: (ripples, fringes, a bad continuum): 4 is above the 1.5-3.1 that correlated noise gives
+#: in the resampled MILES spectra (data) and far above 1 (white noise).
+SCATTER_EXCESS = 4.0
+#: scatter x DER_SNR above which the row notes that DER_SNR overestimates the S/N
+#: (correlated pixel noise); white noise gives 1 +- 0.2 here (data).
+CORRELATED_NOISE_RATIO = 1.4
+#: The Balmer lines checked, with their names for the reasons, lowest series member last.
+BALMER_CHECKED = {"HI4102": "H-delta", "HI4340": "H-gamma", "HI4861": "H-beta"}
+_BALMER_SERIES = ("HI3835", "HI3889", "HI3970", "HI4102", "HI4340", "HI4861", "HI6563")
+_BALMER_NAMES = dict(zip(_BALMER_SERIES, ("H9", "H8", "H-epsilon", "H-delta", "H-gamma",
+                                          "H-beta", "H-alpha")))
+_EMISSION_LINES = ("HeII4686", "NIII4634", "NIII4641", "NIII4642", "HI6563")
+
+
+def _num(x) -> float:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return math.nan
+    return v
+
+
+def continuum_snr(row: Mapping) -> float:
+    """S/N from the continuum scatter, 1 / ``continuum_scatter`` (NaN when unknown)."""
+    s = _num(row.get("continuum_scatter"))
+    return 1.0 / s if math.isfinite(s) and s > 0 else math.nan
+
+
+def effective_snr(row: Mapping) -> float:
+    """The smaller of DER_SNR (``snr``) and :func:`continuum_snr` (NaN if neither is known)."""
+    vals = [v for v in (_num(row.get("snr")), continuum_snr(row)) if math.isfinite(v)]
+    return min(vals) if vals else math.nan
+
+
+def noise_note(row: Mapping) -> str:
+    """A note when the continuum scatter says the S/N is lower than DER_SNR, else ''."""
+    snr, cs = _num(row.get("snr")), continuum_snr(row)
+    if not (math.isfinite(snr) and math.isfinite(cs)) or snr / cs <= CORRELATED_NOISE_RATIO:
+        return ""
+    return (f"continuum scatter implies S/N {cs:.0f}, DER_SNR {snr:.0f}: pixel noise "
+            "correlated (oversampled or smoothed spectrum?), DER_SNR overestimates the S/N")
+
+
+def _by_id(lines: Sequence[Mapping]) -> dict[str, Mapping]:
+    return {str(ln.get("line", "")): ln for ln in lines}
+
+
+def _detected(ln: Mapping | None, sigma: float, *, emission: bool) -> bool:
+    if ln is None or ln.get("status") != "measured" or bool(ln.get("emission")) != emission:
+        return False
+    sig = _num(ln.get("significance"))
+    return math.isfinite(sig) and abs(sig) >= sigma
+
+
+def inverted_emission(lines: Sequence[Mapping], sigma: float = 3.0) -> list[str]:
+    """Balmer lines detected in emission while a lower member is detected in absorption."""
+    by = _by_id(lines)
+    out = []
+    for k, ident in enumerate(_BALMER_SERIES):
+        if not _detected(by.get(ident), sigma, emission=True):
+            continue
+        if any(_detected(by.get(lower), sigma, emission=False)
+               for lower in _BALMER_SERIES[k + 1:]):
+            out.append(ident)
+    return out
+
+
+def _wind_emission(lines: Sequence[Mapping], sigma: float) -> bool:
+    by = _by_id(lines)
+    return any(_detected(by.get(i), sigma, emission=True) for i in _EMISSION_LINES)
+
+
+def _balmer_reasons(lines: Sequence[Mapping], sigma: float) -> list[str]:
+    by = _by_id(lines)
+    wind = _wind_emission(lines, sigma)
+    out = []
+    for ident, name in BALMER_CHECKED.items():
+        ln = by.get(ident)
+        if ln is None or ln.get("status") not in ("measured", "not detected"):
+            continue  # outside the range, masked, or fitted as part of a blend
+        if ident == "HI4861" and wind:
+            continue
+        ew, err = _num(ln.get("ew")), _num(ln.get("ew_err"))
+        if ln.get("status") == "not detected":
+            out.append(f"{name} not detected")
+        elif ln.get("emission"):
+            continue  # judged by the emission pattern below
+        elif math.isfinite(ew) and ew < MIN_BALMER_EW:
+            out.append(f"{name} EW {ew:.2f} A (< {MIN_BALMER_EW:g} A in any O/B star)")
+        elif math.isfinite(ew) and math.isfinite(err) and err > abs(ew):
+            out.append(f"{name} EW error {err:.2f} A larger than its EW {ew:.2f} A")
+    for ident in inverted_emission(lines, sigma):
+        out.append(f"{_BALMER_NAMES[ident]} in emission while a lower Balmer line is in "
+                   "absorption")
+    return out
+
+
+def suspect_reasons(row: Mapping, lines: Sequence[Mapping], sigma: float = 3.0) -> list[str]:
+    """Why a hot-star spectrum's data look bad; empty when they look fine.
+
+    Parameters
+    ----------
+    row : mapping
+        Result row; ``subtype`` (hot star when finite), ``snr`` and ``continuum_scatter``.
+    lines : sequence of mapping
+        Per-line rows (``line, status, emission, significance, ew, ew_err``).
+    sigma : float
+        Detection threshold in sigma.
+
+    Returns
+    -------
+    list of str
+        One short reason per problem (see the module docstring).
+    """
+    if row.get("status") == "failed":
+        return []
+    out = []
+    if math.isfinite(_num(row.get("subtype"))):
+        out += _balmer_reasons(lines, sigma)
+    snr, cs = _num(row.get("snr")), continuum_snr(row)
+    if math.isfinite(snr) and math.isfinite(cs) and snr / cs > SCATTER_EXCESS:
+        out.append(f"continuum scatter {snr / cs:.1f} x the DER_SNR noise")
+    return out
