@@ -70,11 +70,17 @@ def _e(value) -> str:
 
 
 def _num(value, fmt: str) -> str:
+    """``value`` formatted, '' when not a finite number; never a negative zero."""
     try:
         v = float(value)
     except (TypeError, ValueError):
         return ""
-    return format(v, fmt) if math.isfinite(v) else ""
+    if not math.isfinite(v):
+        return ""
+    text = format(v, fmt)
+    if text.startswith("-") and not any(c in "123456789" for c in text.split("e")[0]):
+        text = format(0.0, fmt)
+    return text
 
 
 def _td_num(value, fmt: str) -> str:

@@ -88,11 +88,13 @@ def _flags(row: Mapping) -> str:
 
 
 def _notes(row: Mapping) -> str:
-    notes = [n for key in ("notes", "class_notes") for n in str(row.get(key) or "").split("; ")
-             if n.strip()]
-    if not notes:
-        return ""
-    return "<p>Notes:</p><ul>" + "".join(f"<li>{_e(n)}</li>" for n in notes) + "</ul>"
+    parts = []
+    for key, title in (("notes", "Notes"), ("class_notes", "Classification notes")):
+        notes = [n for n in str(row.get(key) or "").split("; ") if n.strip()]
+        if notes:
+            parts.append(f"<p>{title}:</p><ul>"
+                         + "".join(f"<li>{_e(n)}</li>" for n in notes) + "</ul>")
+    return "".join(parts)
 
 
 def _lines_table(lines: Sequence[Mapping]) -> str:

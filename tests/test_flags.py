@@ -20,7 +20,7 @@ from starlines.targets import match_targets, read_targets
 
 def _row(**kw):
     row = {"status": "ok", "file": "a.fits", "label": "", "object": "X", "snr": 150.0,
-           "subtype": 9.0, "rv": 10.0, "rv_err": 2.0, "flags": ""}
+           "subtype": 9.0, "rv": 10.0, "rv_err": 2.0, "flags": "", "rv_frame": "barycentric"}
     row.update(kw)
     return row
 
@@ -83,6 +83,22 @@ def test_broad_4686_emission_is_wolf_rayet_like():
 def test_fast_rotator_threshold():
     assert "fast-rotator" in fl.spectrum_flags(_row(vsini=fl.FAST_ROTATOR_VSINI + 1), HE_LINES)
     assert fl.spectrum_flags(_row(vsini=fl.FAST_ROTATOR_VSINI - 1), HE_LINES) == []
+
+
+def test_fast_rotator_never_from_an_upper_limit_or_a_double_lined_binary():
+    from starlines.vsini import resolution_floor
+
+    # at 3.0 A FWHM the floor c FWHM / lambda at He I 4471.48 A is 201.1 km/s (c =
+    # 299792.458 km/s, common practice): an upper limit there is above the threshold
+    floor = resolution_floor(4471.48, 3.0)
+    assert floor == pytest.approx(201.1, abs=0.1)
+    limit = _row(vsini=floor + 10.0, vsini_limit=True, vsini_floor=floor)
+    assert fl.spectrum_flags(limit, HE_LINES) == []
+    measured = _row(vsini=floor + 10.0, vsini_limit=False, vsini_floor=floor)
+    assert fl.spectrum_flags(measured, HE_LINES) == ["fast-rotator"]
+    # the blended profile of an SB2 is no rotation profile
+    sb2 = _row(vsini=300.0, rv2=-100.0)
+    assert fl.spectrum_flags(sb2, HE_LINES) == ["double-lined"]
 
 
 def test_helium_strong_and_weak_need_both_size_and_significance():
@@ -192,3 +208,96 @@ def test_bad_target_list_is_a_config_error(tmp_path):
     path.write_text("name,sptype\nA,K9 III\n")
     with pytest.raises(ConfigError, match="catalogue type"):
         read_targets(path)
+
+
+# ----------------------------------------------------------------------------- frames
+def test_velocity_outliers_compare_only_one_frame():
+    # eight barycentric velocities at 20 +- 2 km/s and two topocentric ones carrying the
+    # Earth's orbital motion (29.8 km/s, common practice): 20 + 28 km/s. Mixed, the two
+    # would be > 20 km/s (the floor) and > 4 robust sigma from the median.
+    rows = [_row(object=f"B{i}", rv=20.0 + (i % 5 - 2), rv_err=1.0) for i in range(8)]
+    topo = [_row(object=f"T{i}", rv=48.0 + i, rv_err=1.0, rv_frame="topocentric")
+            for i in range(2)]
+    mixed = fl.velocity_outliers([r["rv"] for r in rows + topo])
+    assert mixed[-2:] == [True, True]  # what mixing frames would do
+    expected = [None] * 8 + [{"rv": 20.0}, None]
+    got = fl.night_flags(rows + topo, expected=expected)
+    assert got == [[]] * 10
+    notes = fl.night_notes(rows + topo, expected=expected)
+    assert notes[:8] == [""] * 8
+    assert "topocentric" in notes[8] and "not with the target list" in notes[8]
+    assert "too few" in notes[9]
+
+
+def test_heliocentric_and_barycentric_form_one_sample():
+    # they differ by the Sun's reflex motion, ~0.013 km/s ([memory]): one sample, so a
+    # heliocentric star 65 km/s off a barycentric cluster is an outlier
+    rows = [_row(object=f"B{i}", rv=20.0 + (i % 5 - 2), rv_err=1.0) for i in range(6)]
+    rows.append(_row(object="H", rv=85.0, rv_err=1.0, rv_frame="heliocentric"))
+    assert fl.night_flags(rows)[-1] == ["velocity-outlier"]
+    # five topocentric velocities are compared among themselves
+    topo = [_row(object=f"T{i}", rv=-5.0 + i, rv_frame="topocentric") for i in range(5)]
+    topo.append(_row(object="T9", rv=90.0, rv_frame="topocentric"))
+    got = fl.night_flags(rows[:6] + topo)
+    assert got[-1] == ["velocity-outlier"] and got[:-1] == [[]] * 11
+
+
+# ----------------------------------------------------------------------------- suspect data
+def _balmer(hd=3.0, hg=3.2, hb=4.0, **kw):
+    out = [_line("HI4102", "balmer", ew=hd), _line("HI4340", "balmer", ew=hg),
+           _line("HI4861", "balmer", ew=hb)]
+    for ln in out:
+        ln["ew_err"] = 0.05
+        ln.update(kw.get(ln["line"], {}))
+    return HE_LINES + out
+
+
+def test_normal_balmer_lines_are_not_suspect():
+    assert fl.spectrum_flags(_row(), _balmer()) == []
+
+
+@pytest.mark.parametrize("change,reason", [
+    ({"HI4340": {"status": "not detected", "sig": 1.0}}, "H-gamma not detected"),
+    ({"HI4102": {"ew": 0.3}}, "H-delta EW 0.30 A"),
+    ({"HI4340": {"ew": 1.2, "ew_err": 1.5}}, "error 1.50 A larger"),
+    ({"HI4102": {"ew": -0.8, "emission": True}}, "H-delta in emission while"),
+])
+def test_bad_balmer_lines_make_suspect_data(change, reason):
+    from starlines.quality import suspect_reasons
+
+    lines = _balmer()
+    for ln in lines:
+        for key, value in change.get(ln["line"], {}).items():
+            ln["significance" if key == "sig" else key] = value
+    # every O/early-B star has H-delta, H-gamma and H-beta in absorption above ~1 A
+    # (the weakest in 19 MILES O/B spectra: 0.76 A, data; [memory] for O stars)
+    assert "suspect-data" in fl.spectrum_flags(_row(), lines)
+    assert any(reason in r for r in suspect_reasons(_row(), lines))
+    # an inverted Balmer emission pattern is no balmer-emission (emission decreases up
+    # the series, H-alpha first: common practice)
+    assert "balmer-emission" not in fl.spectrum_flags(_row(), lines)
+
+
+def test_wind_filled_h_beta_of_an_emission_line_star_is_not_suspect():
+    lines = _balmer(hb=0.2) + [_line("HeII4686", "heii", emission=True, ew=-1.0)]
+    assert fl.spectrum_flags(_row(), lines) == ["of-emission"]
+    be = _balmer(HI4861={"ew": -2.0, "emission": True}) + [
+        _line("HI6563", "balmer", emission=True, ew=-10.0)]
+    assert fl.spectrum_flags(_row(), be) == ["balmer-emission"]
+
+
+def test_continuum_scatter_far_above_der_snr_noise_is_suspect_and_lowers_snr():
+    # white noise: scatter x S/N = 1 (DER_SNR is unbiased, Stoehr et al. 2008)
+    assert fl.spectrum_flags(_row(snr=150.0, continuum_scatter=1 / 140.0), _balmer()) == []
+    ripples = _row(snr=300.0, continuum_scatter=5.0 / 300.0)  # 5x the DER_SNR noise
+    assert fl.spectrum_flags(ripples, _balmer()) == ["suspect-data"]
+    # correlated noise (2x, as in resampled library spectra): S/N 90 by DER_SNR is 45 by
+    # the continuum scatter, below the 50 of low-snr
+    smooth = _row(snr=90.0, continuum_scatter=2.0 / 90.0)
+    assert fl.spectrum_flags(smooth, _balmer()) == ["low-snr"]
+
+
+def test_suspect_data_halves_the_followup_confidence():
+    row = _row(snr=200.0, flags="double-lined,suspect-data")
+    assert confidence(row) == pytest.approx(0.5)
+    assert "suspect data" in rank_rows([row])[0]["followup_reason"]

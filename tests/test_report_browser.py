@@ -7,6 +7,7 @@ spectrum, render every embedded image, sort its table, and reference nothing out
 
 from __future__ import annotations
 
+import html
 import os
 import re
 import shutil
@@ -40,6 +41,54 @@ def test_report_is_self_contained(small_night):
     assert "provisional" in text
     srcs = re.findall(r'<img[^>]*src="([^"]+)"', text)
     assert srcs and all(s.startswith("data:image/png;base64,") for s in srcs)
+
+
+def _cells(text, table_id):
+    """Rows of a table of the report as lists of cell HTML (no parser needed: the report
+    writes one <tr> per row and no nested tables)."""
+    body = text.split(f'id="{table_id}"', 1)[1].split("</tbody>", 1)[0]
+    return [re.findall(r"<td[^>]*>(.*?)</td>", tr, re.S) for tr in body.split("<tr")[2:]]
+
+
+def test_report_numbers_sections_and_flag_legend(small_night):
+    from starlines.flags import FLAGS
+
+    text = open(small_night.outputs["report"], encoding="utf-8").read()
+    heads = re.findall(r"<th>(.*?)</th>", text.split('id="all-spectra"', 1)[1].split(
+        "</thead>", 1)[0])
+    col = {h: i for i, h in enumerate(heads)}
+    rows = _cells(text, "all-spectra")
+    by_file = {os.path.basename(r["file"]): r for r in small_night.rows}
+    assert len(rows) == len(small_night.rows)
+    for cells in rows:
+        row = by_file[cells[col["file"]]]
+        if row["status"] != "ok":
+            continue
+        # precision (common practice: one digit beyond the typical error): Teff to 100 K,
+        # velocities to 0.1 km/s, v sin i to 1 km/s with upper limits as "< N"
+        teff = cells[col["Teff [K]"]]
+        assert re.fullmatch(r"\d+00", teff) and abs(float(teff) - row["teff"]) <= 50.0
+        assert re.fullmatch(r"[+-]\d+\.\d", cells[col["rv [km/s]"]])
+        vsini = cells[col["v sin i [km/s]"]]
+        if row["vsini_limit"]:
+            assert vsini == f"&lt; {row['vsini']:.0f}"
+        else:
+            assert re.fullmatch(r"\d+", vsini)
+        # each star links to its own section
+        anchor = re.search(r'href="#([^"]+)"', cells[col["star"]]).group(1)
+        assert f'<section class="star" id="{anchor}">' in text
+    assert any(r["vsini_limit"] for r in small_night.rows if r["status"] == "ok")
+    # EWs to 0.01 A with their errors in the per-star line tables
+    ews = re.findall(r'<table class="lines">.*?</table>', text, re.S)
+    assert len(ews) == sum(r["status"] == "ok" for r in small_night.rows)
+    cells = re.findall(r'<td class="num">([^<]*&plusmn;[^<]*)</td>', ews[0])
+    assert cells and all(re.fullmatch(r"-?\d+\.\d\d &plusmn; \d+\.\d\d", c) for c in cells)
+    # flag legend: every flag with its description and the night's count
+    legend = {c[0]: c for c in _cells(text, "flag-legend")}
+    assert set(legend) == {f.name for f in FLAGS}
+    for f in FLAGS:
+        assert legend[f.name][1] == html.escape(f.description)
+    assert legend["failed"][4] == "1"
 
 
 @pytest.fixture(scope="module")
@@ -106,3 +155,18 @@ def test_report_table_sorts_on_click(small_night, browser):
     header.click()
     assert column() == sorted(column(), reverse=True)
     assert [e for e in browser.get_log("browser") if e["level"] == "SEVERE"] == []
+
+
+@pytest.mark.browser
+def test_star_link_jumps_to_its_section(small_night, browser):
+    from selenium.webdriver.common.by import By
+
+    browser.get("file://" + os.path.abspath(small_night.outputs["report"]))
+    link = browser.find_elements(By.CSS_SELECTOR, "#all-spectra tbody td a")[1]
+    target = link.get_attribute("href").split("#", 1)[1]
+    link.click()
+    assert browser.execute_script("return location.hash") == "#" + target
+    section = browser.find_element(By.ID, target)
+    assert section.tag_name == "section" and section.is_displayed()
+    # the section shows the star's flags with their meaning and its figure
+    assert section.find_elements(By.TAG_NAME, "img") or "failed" in section.text

@@ -174,3 +174,158 @@ def test_figures_are_written_and_journal_is_json_lines(night, tmp_path):
         records = [json.loads(line) for line in fh]
     assert {r["key"]["path"] for r in records} == {os.path.abspath(r["file"])
                                                    for r in result.rows}
+
+
+# ----------------------------------------------------------------------------- synthetic files
+def _synthetic(wave, *, subtype=9.0, vsini=60.0, rv=30.0, fwhm=2.5, snr=200.0, seed=1):
+    """Synthetic O9 V flux (starlines.synth) with Gaussian noise of the given S/N."""
+    import numpy as np
+
+    from starlines.synth import parameters_for_type, synthetic_spectrum
+
+    teff, logg = parameters_for_type(subtype, "V")
+    flux = synthetic_spectrum(wave, teff=teff, logg=logg, he=0.1, vsini=vsini, rv=rv,
+                              resolution_fwhm=fwhm, medium="air")
+    rng = np.random.default_rng(seed)
+    return 1000.0 * (flux + rng.normal(0.0, 1.0 / snr, wave.size))
+
+
+def _cards(header, fwhm):
+    header["OBJECT"] = "SYNTH-1"
+    header["RESOLUTN"] = (fwhm, "instrumental FWHM [Angstrom]")
+    header["AIRORVAC"] = "air"
+
+
+def test_vsini_below_the_resolution_floor_is_an_upper_limit_not_a_fast_rotator(tmp_path):
+    import numpy as np
+    from astropy.io import fits
+
+    from starlines.report import vsini_text
+
+    # 3.0 A FWHM: floor c FWHM / lambda = 299792.458 x 3.0 / 4471.48 = 201.1 km/s at He I
+    # 4471 (common practice), above the 200 km/s fast-rotator threshold; the star
+    # rotates at 60 km/s, so its v sin i can only be an upper limit
+    wave = 3850.0 + 0.6 * np.arange(2100)
+    hdu = fits.PrimaryHDU(_synthetic(wave, vsini=60.0, fwhm=3.0).astype(np.float32))
+    hdu.header.update(CRVAL1=3850.0, CDELT1=0.6, CRPIX1=1.0, CTYPE1="AWAV",
+                      CUNIT1="Angstrom")
+    _cards(hdu.header, 3.0)
+    hdu.writeto(tmp_path / "slow.fits")
+    (row,) = analyse_file(tmp_path / "slow.fits").rows
+    assert row["status"] == "ok"
+    assert row["vsini_limit"] is True
+    assert row["vsini_floor"] == pytest.approx(201.1, abs=0.5)
+    assert row["vsini"] >= row["vsini_floor"] - 0.5 and np.isnan(row["vsini_err"])
+    assert "fast-rotator" not in row["flags"]
+    assert vsini_text(row) == f"&lt; {row['vsini']:.0f}"
+
+
+def _multispec(path, pieces, *, fwhm=2.5):
+    """An IRAF multispec file (WAT2 specN strings, dtype 0 = linear) holding ``pieces`` of
+    (first wavelength, step, flux); layout as in tests/test_readers.py."""
+    import numpy as np
+    from astropy.io import fits
+
+    n = max(len(f) for _, _, f in pieces)
+    data = np.ones((len(pieces), n), dtype=np.float32)
+    specs = []
+    for k, (w0, dw, flux) in enumerate(pieces, start=1):
+        data[k - 1, :len(flux)] = flux
+        specs.append(f'spec{k} = "{k} {70 - k} 0 {w0:.4f} {dw:.4f} {len(flux)} 0. '
+                     f'{10 * k}.5 {10 * k + 8}.5"')
+    text = "wtype=multispec " + " ".join(specs)
+    hdu = fits.PrimaryHDU(data)
+    hdu.header["WAT0_001"] = "system=multispec"
+    hdu.header["WAT1_001"] = "wtype=multispec label=Wavelength units=angstroms"
+    for i in range(0, len(text), 68):
+        hdu.header[f"WAT2_{i // 68 + 1:03d}"] = text[i:i + 68]
+    hdu.header["CTYPE1"] = "MULTISPE"
+    _cards(hdu.header, fwhm)
+    hdu.writeto(path)
+    return path
+
+
+def test_echelle_orders_are_merged_into_one_row_and_fibers_kept_apart(tmp_path):
+    import numpy as np
+
+    # seven orders of 170 A overlapping by 10 A, 3880-4920 A, and one order (5400-5560 A)
+    # holding none of the classification lines: one merged row, every order used
+    step = 0.5
+    wave = 3880.0 + step * np.arange(int((5560.0 - 3880.0) / step) + 1)
+    flux = _synthetic(wave, vsini=80.0, rv=30.0)
+    pieces = []
+    for w0 in [3880.0 + 160.0 * k for k in range(7)] + [5400.0]:
+        sel = (wave >= w0) & (wave < w0 + 170.0)
+        pieces.append((w0, step, flux[sel]))
+    path = _multispec(tmp_path / "echelle.fits", pieces)
+    result = analyse_file(path)
+    assert [r["label"] for r in result.rows] == ["merged 8 orders"]
+    row = result.rows[0]
+    assert row["status"] == "ok" and row["n_orders"] == 8
+    # injected O9 V: type within 1.5 subtypes (criteria.md C4, Markova et al. 2011)
+    assert abs(row["subtype"] - 9.0) <= 1.5
+    # injected 30 km/s (topocentric: no site); 10 km/s = 5x the typical error at S/N 200
+    assert row["rv"] == pytest.approx(30.0, abs=10.0)
+    # two fibers on the same 3880-5000 A range: one row each, both analysed
+    sel = wave <= 5000.0
+    fib = _multispec(tmp_path / "fibers.fits", [
+        (3880.0, step, flux[sel]),
+        (3880.0, step, _synthetic(wave[sel], subtype=10.0, vsini=80.0, rv=-20.0, seed=2))])
+    rows = analyse_file(fib).rows
+    assert [r["status"] for r in rows] == ["ok", "ok"] and len({r["label"] for r in rows}) == 2
+    assert [r["n_orders"] for r in rows] == [1, 1]
+    assert rows[1]["rv"] == pytest.approx(-20.0, abs=10.0)
+
+
+def test_changed_options_are_analysed_again(night, tmp_path):
+    from starlines.airvac import refractive_index
+
+    out = tmp_path / "opts"
+    first = triage_night(night["night"], out, workers=1, figures=False, progress=False,
+                         report=False)
+    same = triage_night(night["night"], out, workers=1, figures=False, progress=False,
+                        report=False)
+    assert same.analysed == 0
+    # forcing vacuum on air wavelengths: every file is redone, and the velocities move by
+    # -(n - 1) c with n the refractive index of air at ~4500 A (n - 1 = 2.8e-4, -84 km/s;
+    # Morton 2000 via starlines.airvac, criteria.md 5a)
+    vac = triage_night(night["night"], out, workers=1, figures=False, progress=False,
+                       report=False, medium="vacuum")
+    assert vac.analysed == len(STARS) + 2 and vac.reused == 0
+    shift = -(refractive_index(4500.0) - 1.0) * 299792.458
+    by_first = {r["object"]: r for r in first.rows if r["status"] == "ok"}
+    for row in vac.rows:
+        if row["status"] == "ok" and row["object"] != "H7-14":  # SB2: blended lines
+            assert row["rv"] - by_first[row["object"]]["rv"] == pytest.approx(shift, abs=5.0)
+    back = triage_night(night["night"], out, workers=1, figures=False, progress=False,
+                        report=False)
+    assert back.analysed == len(STARS) + 2  # the journal's latest records are vacuum ones
+    assert Journal(str(out)).load()[os.path.abspath(first.rows[0]["file"])]["key"]["options"]
+
+
+REFERENCE = os.environ.get("STARLINES_REFERENCE_SPECTRA") or os.path.join(
+    os.path.dirname(__file__), os.pardir, os.pardir, "shared", "reference-spectra")
+
+
+def _reference(name):
+    path = os.path.join(REFERENCE, "miles", name)
+    if not os.path.exists(path):
+        pytest.skip(f"reference spectra not found at {REFERENCE} (set "
+                    "STARLINES_REFERENCE_SPECTRA)")
+    return path
+
+
+def test_bad_library_spectrum_is_suspect_data():
+    # MILES HD 216916 (B2 IV): the library notes S/N ~18-40 (reference-spectra README,
+    # "data"); resampled to 0.9 A pixels at 2.5 A FWHM, its pixel noise is correlated and
+    # DER_SNR (Stoehr et al. 2008, independent pixels) overestimates the S/N
+    (row,) = analyse_file(_reference("MILES_res2.50_star_m0853V.fits")).rows
+    flags = row["flags"].split(",")
+    assert "suspect-data" in flags and "low-snr" in flags
+    assert "H-gamma not detected" in row["notes"]
+    assert row["snr"] > 50.0  # DER_SNR passes the cut ...
+    assert 18.0 <= row["snr_continuum"] <= 45.0  # ... the continuum scatter does not
+    assert "balmer-emission" not in flags  # H8 "emission" with H-beta in absorption
+    # a good MILES B2 IV (HD 886, S/N ~220 in the README) is not suspect
+    (good,) = analyse_file(_reference("MILES_res2.50_star_m0011V.fits")).rows
+    assert "suspect-data" not in good["flags"] and "low-snr" not in good["flags"]
