@@ -60,6 +60,7 @@ __all__ = [
     "HE_NORMAL",
     "HE_TOLERANCE",
     "MIN_SIGNIFICANCE",
+    "OF_LATEST_SUBTYPE",
     "VELOCITY_FRAMES",
     "night_notes",
 ]
@@ -87,6 +88,10 @@ FAST_ROTATOR_VSINI = 200.0
 #: WR emission lines are thousands of km/s wide with EWs of tens of A ([memory]).
 BROAD_EMISSION_FWHM = 20.0
 BROAD_EMISSION_EW = -10.0
+#: He II 4686 / N III emission counts as Of-like only before this subtype (B0.5 = 10.5):
+#: the Of phenomenon belongs to O and B0 stars (criteria.md 3a, Walborn; the classifier
+#: uses the same limit); in a typed later-B star such "emission" is a continuum artefact.
+OF_LATEST_SUBTYPE = 10.5
 
 #: Centroid and cross-correlation velocities disagree when they differ by more than this
 #: (km/s) and by more than 3 combined sigma: a sign of blends, emission or a companion.
@@ -133,7 +138,8 @@ FLAGS: tuple[Flag, ...] = (
          f"or EW < {BROAD_EMISSION_EW:g} A", 5.0),
     Flag("of-emission", "Of-like emission in He II 4686 and/or N III 4634-42",
          "He II 4686 or N III 4634/4641/4642 measured in emission "
-         f"at >= {MIN_SIGNIFICANCE:g} sigma", 3.0),
+         f"at >= {MIN_SIGNIFICANCE:g} sigma in a star typed earlier than B0.5 (or untyped)",
+         3.0),
     Flag("balmer-emission", "emission in Balmer lines (Be/Oe-like)",
          f"any Balmer line measured in emission at >= {MIN_SIGNIFICANCE:g} sigma", 3.0),
     Flag("double-lined", "two sets of lines: double-lined binary (SB2)",
@@ -149,7 +155,8 @@ FLAGS: tuple[Flag, ...] = (
     Flag("type-disagreement", "line-ratio rules and model disagree on the type",
          f"|rules subtype - model subtype| > {SUBTYPE_TOLERANCE:g} subtype", 1.0),
     Flag("catalogue-type-differs", "type differs from the target list",
-         f"|measured - catalogue subtype| > {SUBTYPE_TOLERANCE:g} subtype", 2.0, "night"),
+         f"|measured - catalogue subtype| > {SUBTYPE_TOLERANCE:g} subtype and > 3 x the "
+         "measured subtype error", 2.0, "night"),
     Flag("velocity-outlier", "velocity far from the night's sample or the expected value",
          f"|rv - median| > max({OUTLIER_NSIGMA:g} x 1.4826 MAD, {OUTLIER_FLOOR_KMS:g} km/s, "
          f"3 rv_err), or |rv - expected systemic| > max({SYSTEMIC_TOLERANCE_KMS:g} km/s, "
@@ -230,16 +237,17 @@ def _detected(line: Mapping, *, emission: bool) -> bool:
     return _finite(sig) and abs(float(sig)) >= MIN_SIGNIFICANCE
 
 
-def _emission_flags(lines: Sequence[Mapping]) -> set[str]:
+def _emission_flags(lines: Sequence[Mapping], subtype=math.nan) -> set[str]:
     out: set[str] = set()
     inverted = set(inverted_emission(lines, MIN_SIGNIFICANCE))  # not a stellar pattern
+    late_b = _finite(subtype) and float(subtype) >= OF_LATEST_SUBTYPE
     for ln in lines:
         if not _detected(ln, emission=True):
             continue
         ident = str(ln.get("line", ""))
         if ln.get("kind") == "balmer" and ident not in inverted:
             out.add("balmer-emission")
-        elif ident == "HeII4686" or ident.startswith("NIII46"):
+        elif (ident == "HeII4686" or ident.startswith("NIII46")) and not late_b:
             out.add("of-emission")
         if ident == "HeII4686":
             fwhm, ew = ln.get("fwhm"), ln.get("ew")
@@ -285,7 +293,7 @@ def spectrum_flags(
     if row.get("status") == "failed":
         return ["failed"]
     out = {f for f in stage_flags if f in _BY_NAME and flag(f).scope == "spectrum"}
-    out |= _emission_flags(lines)
+    out |= _emission_flags(lines, row.get("subtype"))
     if row.get("rv2") is not None and _finite(row.get("rv2")):
         out.add("double-lined")
     if (_finite(row.get("vsini")) and not row.get("vsini_limit")

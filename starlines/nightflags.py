@@ -34,7 +34,9 @@ VELOCITY_FRAMES = {"barycentric": "barycentric", "heliocentric": "barycentric",
                    "topocentric": "topocentric"}
 #: Subtypes (1.0 = one step O5 -> O6, B0 -> B1) beyond which two types "disagree".
 #: Digital types differ from photographic ones by up to 1.5 subtypes (criteria.md C4),
-#: so one full subtype is the smallest difference worth a look.
+#: so one full subtype is the smallest difference worth a look; against the target list
+#: the difference must also exceed 3 x the measured subtype error (as for helium), so a
+#: noisy spectrum's uncertain type does not contradict its catalogue.
 SUBTYPE_TOLERANCE = 1.0
 
 
@@ -129,7 +131,8 @@ def night_flags(
                 found.add("velocity-outlier")
         sub = row.get("subtype")
         if exp and _finite(exp.get("subtype")) and _finite(sub):
-            if abs(float(sub) - float(exp["subtype"])) > SUBTYPE_TOLERANCE:
+            err = float(row.get("subtype_err")) if _finite(row.get("subtype_err")) else 0.0
+            if abs(float(sub) - float(exp["subtype"])) > max(SUBTYPE_TOLERANCE, 3 * err):
                 found.add("catalogue-type-differs")
         if row.get("object") and row["object"] in variable:
             found.add("velocity-variable")

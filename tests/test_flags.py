@@ -69,6 +69,14 @@ def test_emission_lines_raise_their_flag(ident, kind, expected):
     assert set(fl.spectrum_flags(_row(), lines)) == expected
 
 
+def test_of_emission_only_in_o_and_b0_stars():
+    # the Of phenomenon belongs to O/B0 stars (criteria.md 3a, Walborn): He II 4686
+    # "emission" in a B2 star (subtype 12) is no Of-like emission
+    lines = HE_LINES + [_line("HeII4686", "heii", emission=True, ew=-0.12)]
+    assert fl.spectrum_flags(_row(subtype=12.0), lines) == []
+    assert fl.spectrum_flags(_row(subtype=10.0), lines) == ["of-emission"]
+
+
 def test_weak_emission_below_significance_is_not_flagged():
     lines = HE_LINES + [_line("HI4861", "balmer", emission=True, sig=fl.MIN_SIGNIFICANCE - 0.1)]
     assert fl.spectrum_flags(_row(), lines) == []
@@ -156,6 +164,15 @@ def test_night_flags_systemic_catalogue_and_variable():
     assert got[-1] == ["catalogue-type-differs", "velocity-outlier"]
     assert got[2] == ["velocity-variable"]
     assert all(g == [] for i, g in enumerate(got[:-1]) if i != 2)
+
+
+def test_catalogue_type_needs_three_sigma_as_well():
+    # O9 V in the catalogue (9.0), measured B0 V (10.1) at S/N 25 with +-0.5: 2.2 sigma
+    rows = [_row(object=f"S{i}") for i in range(3)]
+    noisy = _row(object="N", subtype=10.1, subtype_err=0.5)
+    sure = _row(object="M", subtype=10.1, subtype_err=0.2)
+    got = fl.night_flags(rows + [noisy, sure], expected=[None] * 3 + [{"subtype": 9.0}] * 2)
+    assert got[3] == [] and got[4] == ["catalogue-type-differs"]
 
 
 def test_followup_score_is_interest_times_confidence():
