@@ -33,6 +33,7 @@ __all__ = [
     "file_digest",
     "code_digest",
     "cache_key",
+    "library_version",
     "load_arrays",
     "save_arrays",
     "json_array",
@@ -90,11 +91,13 @@ def code_digest() -> str:
     for p in files:
         h.update(str(p.relative_to(root)).encode())
         h.update(p.read_bytes())
-    h.update(f"numpy {np.__version__} scikit-learn {_version('scikit-learn')}".encode())
+    h.update(f"numpy {np.__version__} scikit-learn {library_version('scikit-learn')}".encode())
     return h.hexdigest()
 
 
-def _version(dist: str) -> str:
+@lru_cache(maxsize=8)
+def library_version(dist: str) -> str:
+    """Installed version of a distribution (memoised; "absent" when not installed)."""
     from importlib import metadata
 
     try:

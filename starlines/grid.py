@@ -225,7 +225,11 @@ def _grid_to_arrays(tab) -> dict[str, np.ndarray]:
     layout = {"names": tab.colnames, "units": [None if tab[n].unit is None else
                                                tab[n].unit.to_string() for n in tab.colnames],
               "meta": dict(tab.meta)}
-    arrays = {f"col{i}": np.asarray(tab[n]) for i, n in enumerate(tab.colnames)}
+    cols = [np.asarray(tab[n]) for n in tab.colnames]
+    if all(c.dtype == np.float64 and c.ndim == 1 for c in cols):
+        arrays = {"matrix": np.column_stack(cols)}  # one member: quicker to load
+    else:
+        arrays = {f"col{i}": c for i, c in enumerate(cols)}
     arrays["layout"] = json_array(layout)
     return arrays
 
@@ -236,7 +240,11 @@ def _table_from_arrays(arrays: dict[str, np.ndarray]):
     from starlines.cache import from_json_array
 
     layout = from_json_array(arrays["layout"])
-    cols = [np.array(arrays[f"col{i}"]) for i in range(len(layout["names"]))]
+    if "matrix" in arrays:
+        matrix = arrays["matrix"]
+        cols = [np.array(matrix[:, i]) for i in range(len(layout["names"]))]
+    else:
+        cols = [np.array(arrays[f"col{i}"]) for i in range(len(layout["names"]))]
     tab = Table(cols, names=layout["names"], meta=layout["meta"], copy=False)
     for name, unit in zip(layout["names"], layout["units"]):
         if unit is not None:
@@ -249,13 +257,18 @@ _GRID_MEMO: dict[str, dict[str, np.ndarray]] = {}
 
 def _load_shipped(p: Path):
     """The shipped grid from process memory, the user cache or (once) the ECSV file."""
-    from importlib import metadata
-
-    from starlines.cache import cache_key, code_digest, file_digest, load_arrays, save_arrays
+    from starlines.cache import (
+        cache_key,
+        code_digest,
+        file_digest,
+        library_version,
+        load_arrays,
+        save_arrays,
+    )
 
     try:
         key = cache_key(GRID_CACHE_NAME, file_digest(p), code_digest(),
-                        f"astropy {metadata.version('astropy')}")
+                        f"astropy {library_version('astropy')}")
     except OSError:
         return _read_ecsv(p)
     arrays = _GRID_MEMO.get(key) or load_arrays(GRID_CACHE_NAME, key)
