@@ -91,7 +91,10 @@ def code_digest() -> str:
     for p in files:
         h.update(str(p.relative_to(root)).encode())
         h.update(p.read_bytes())
-    h.update(f"numpy {np.__version__} scikit-learn {library_version('scikit-learn')}".encode())
+    from starlines import __version__
+
+    h.update(f"starlines {__version__} numpy {np.__version__} "
+             f"scikit-learn {library_version('scikit-learn')}".encode())
     return h.hexdigest()
 
 
