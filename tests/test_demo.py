@@ -8,6 +8,8 @@ known in advance; the normal stars were made without any of these and must raise
 
 from __future__ import annotations
 
+import contextlib
+import fcntl
 import math
 import os
 
@@ -20,10 +22,26 @@ from starlines.flags import split_flags
 from starlines.sptype import parse_sptype
 
 
+@contextlib.contextmanager
+def _locked(path):
+    """Exclusive lock on ``path`` (POSIX flock), held while the block runs."""
+    with open(path, "w") as fh:
+        fcntl.flock(fh, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(fh, fcntl.LOCK_UN)
+
+
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo")
-    assert main(["-q", "demo", "--out", str(out), "--no-triage"]) == 0
+    # one demo night per test run, shared by the pytest-xdist workers (their base folders
+    # share a parent): the first worker writes and triages it, the others wait and reuse
+    base = tmp_path_factory.getbasetemp()
+    out = (base.parent if os.environ.get("PYTEST_XDIST_WORKER") else base) / "demo-shared"
+    with _locked(f"{out}.lock"):
+        if not (out / "README.txt").exists():
+            assert main(["-q", "demo", "--out", str(out), "--no-triage"]) == 0
     return out
 
 
@@ -31,8 +49,10 @@ def demo(tmp_path_factory):
 def triaged(demo):
     from starlines.triage import triage_night
 
-    return triage_night(demo / "night", demo / "triage", targets=demo / "targets.ecsv",
-                        workers=2, figures=False, progress=False)
+    # a second worker resumes from the first one's journal (nothing analysed twice)
+    with _locked(f"{demo}.triage.lock"):
+        return triage_night(demo / "night", demo / "triage", targets=demo / "targets.ecsv",
+                            workers=2, figures=False, progress=False)
 
 
 def test_demo_night_files_have_full_headers(demo):
