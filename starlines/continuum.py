@@ -166,7 +166,24 @@ class _PSpline:
 
     def pointwise_var(self, M: np.ndarray) -> np.ndarray:
         """Variance factor b(x)^T M b(x) for unit pixel noise."""
-        return np.einsum("ij,jk,ik->i", self.B, M, self.B)
+        return ((self.B @ M) * self.B).sum(axis=1)
+
+
+_SPLINES: dict[tuple, tuple[np.ndarray, _PSpline]] = {}
+
+
+def _spline(w: np.ndarray, spacing: float) -> _PSpline:
+    """The :class:`_PSpline` of grid ``w``, reused for spectra on the same grid (a night
+    of one instrument): its design matrix costs more than a dozen refits."""
+    key = (w.size, float(w[0]), float(w[-1]), float(spacing))
+    hit = _SPLINES.get(key)
+    if hit is not None and np.array_equal(hit[0], w):
+        return hit[1]
+    if len(_SPLINES) >= 8:
+        _SPLINES.pop(next(iter(_SPLINES)))
+    spline = _PSpline(w, spacing)
+    _SPLINES[key] = (w.copy(), spline)
+    return spline
 
 
 def _clip_fit(w, y, good, linemask, spline, clip_low, clip_high, max_iter):
@@ -265,7 +282,7 @@ def _fit(spec, w, good, resolution_fwhm, line_fwhm, knot_spacing, clip_low, clip
     else:
         fwhm_ins, source = 2.5 * dx, "assumed (2.5 pixels)"
     lines = lines_in_range(w[0] - 60.0, w[-1] + 60.0, medium=spec.medium)
-    spline = _PSpline(w, max(knot_spacing, 20 * dx))
+    spline = _spline(w, max(knot_spacing, 20 * dx))
     lw = fwhm_ins if line_fwhm is None else float(line_fwhm)
     mask = _window_mask(w, line_windows(lines, spec.medium, lw))
     c, M, kept, sig = _clip_fit(w, y, good, mask, spline, clip_low, clip_high, max_iter)

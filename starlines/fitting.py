@@ -1,11 +1,15 @@
 """Least-squares fitting of :class:`~starlines.profiles.BlendModel` line blends.
 
-A small Levenberg-Marquardt with the models' analytic Jacobians (scipy's general solvers
-cost more in call overhead than the fits themselves on these small windows), projected
-hard bounds with an active set, and weak Gaussian priors written as extra residual rows:
-on the baseline (the continuum placement and its uncertainty), on each velocity (around a
-first guess) and on each log-width. The priors keep weak or absent lines from wandering;
-strong lines are set by the data alone.
+A Levenberg-Marquardt with the models' analytic Jacobians (scipy's general solvers cost
+more in call overhead than the fits themselves on these small windows), projected hard
+bounds with an active set, and weak Gaussian priors on the baseline (the continuum
+placement and its uncertainty), on each velocity (around a first guess) and on each
+log-width. The priors keep weak or absent lines from wandering; strong lines are set by
+the data alone.
+
+:func:`fit_blends` fits all the groups of a spectrum at once, vectorised over the groups
+(:mod:`starlines.batchfit`); :func:`fit_blend` is the one-group call. Both give the same
+result as fitting each group alone (each keeps its own damping and stopping rule).
 """
 
 from __future__ import annotations
