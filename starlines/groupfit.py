@@ -12,6 +12,8 @@ missing from the catalogue are refitted without those pixels.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from starlines.blends import FitGroup
@@ -59,20 +61,20 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
     """
     p = np.zeros(model.npar)
     prior = np.full(model.npar, np.inf)
-    p[0], prior[0:2] = 1.0, np.hypot(cerr, CONTINUUM_FLOOR)
+    p[0], prior[0:2] = 1.0, math.hypot(cerr, CONTINUUM_FLOOR)
     for k, (c, pl) in enumerate(zip(model.components, members)):
         iv, iw = 2 + c.vgroup, 2 + model.nv + c.wgroup
         p[iv] = v0
         ia = model.amp_index[k]
         if pl.line.kind == "balmer":
             prior[iv] = 100.0
-            p[iw], prior[iw] = np.log(np.hypot(fwhm, 3.0) / FWHM_PER_SIGMA), 1.0
-            p[ia + 2], prior[ia + 2] = np.log(2.5), 1.0
+            p[iw], prior[iw] = math.log(math.hypot(fwhm, 3.0) / FWHM_PER_SIGMA), 1.0
+            p[ia + 2], prior[ia + 2] = math.log(2.5), 1.0
         else:
             prior[iv] = max(30.0, 0.25 * C_KMS * pl.fwhm / pl.rest)
-            p[iw], prior[iw] = np.log(pl.fwhm / FWHM_PER_SIGMA), 0.35
+            p[iw], prior[iw] = math.log(pl.fwhm / FWHM_PER_SIGMA), 0.35
             if c.shape == "wing":  # Stark wings of a strong He line
-                p[ia + 2], prior[ia + 2] = np.log(0.4 * pl.fwhm), 1.0
+                p[ia + 2], prior[ia + 2] = math.log(0.4 * pl.fwhm), 1.0
     X = _design(model, p, x)
     try:
         inv = np.linalg.inv(X.T @ X)
@@ -82,27 +84,29 @@ def _initial(model: BlendModel, members, x, y, err, fwhm, v0, cerr):
         cov = np.full((X.shape[1], X.shape[1]), np.inf)
     free = np.zeros(model.npar, dtype=bool)
     free[:2] = True
-    amp_sigma = np.zeros(len(model.components))
-    area_sigma = np.zeros(len(model.components))
+    n = len(model.components)
+    amp_sigma, area_sigma = np.zeros(n), np.zeros(n)
+    s, var, cv = sol.tolist(), np.diagonal(cov).tolist(), np.diagonal(cov, 1).tolist()
     j = 2
     for k, (c, ia) in enumerate(zip(model.components, model.amp_index)):
-        nj = 2 if c.shape == "wing" else 1
-        area = sol[j:j + nj].sum()
+        wing = c.shape == "wing"
+        area = s[j] + s[j + 1] if wing else s[j]
         p[ia] = area
         free[ia] = True
-        amp_sigma[k] = np.sqrt(np.diag(cov)[j:j + nj].sum())
+        v = var[j] + var[j + 1] if wing else var[j]
+        amp_sigma[k] = math.sqrt(v)
         # the Gaussian and Lorentzian columns are anticorrelated: the error of their sum
         # is smaller than amp_sigma (which sets bounds and the He I wing threshold)
-        area_sigma[k] = np.sqrt(max(cov[j:j + nj, j:j + nj].sum(), 0.0))
+        area_sigma[k] = math.sqrt(max(v + 2.0 * cv[j], 0.0)) if wing else amp_sigma[k]
         strong = abs(area) > DETECTION_SIGMA * amp_sigma[k]
-        if c.shape == "wing":
-            f0 = np.clip(sol[j + 1] / area, 0.2, 0.8) if area != 0 else 0.5
-            p[ia + 1], prior[ia + 1] = np.log(f0 / (1.0 - f0)), 3.0
+        if wing:
+            f0 = min(max(s[j + 1] / area, 0.2), 0.8) if area != 0 else 0.5
+            p[ia + 1], prior[ia + 1] = math.log(f0 / (1.0 - f0)), 3.0
         if strong:  # let its shape float; weak lines keep the expected shape
-            free[[2 + c.vgroup, 2 + model.nv + c.wgroup]] = True
-            if c.shape == "wing":
+            free[2 + c.vgroup] = free[2 + model.nv + c.wgroup] = True
+            if wing:
                 free[ia + 1:ia + 3] = True
-        j += nj
+        j += 2 if wing else 1
     return p, prior, free, amp_sigma, area_sigma
 
 

@@ -206,22 +206,23 @@ def _build_table(spec, cf, planned: list[PlannedLine], results, resolution, res_
             cols[c][i] = r[c]
         status.append(r["status"])
         emission[i], group[i] = r["emission"], r["fit_group"]
-    t = QTable()
-    t["line"] = [p.line.id for p in planned]
-    t["ion"] = [p.line.ion for p in planned]
-    t["kind"] = [p.line.kind for p in planned]
-    t["wavelength_air"] = np.array([p.line.wavelength_air for p in planned]) * u.AA
-    t["wavelength_rest"] = np.array([p.rest for p in planned]) * u.AA
-    for c in ("ew", "ew_err", "centroid", "centroid_err", "fwhm"):
-        t[c] = cols[c] * u.AA
-    t["rv"] = cols["rv"] * (u.km / u.s)
-    t["rv_err"] = cols["rv_err"] * (u.km / u.s)
-    for c in ("depth", "significance", "chi2_red"):
-        t[c] = cols[c]
-    t["status"] = status
-    t["emission"] = emission
-    t["blended_with"] = [",".join(p.blended_with) for p in planned]
-    t["fit_group"] = group
+    aa, kms = u.AA, u.km / u.s
+    data = {
+        "line": [p.line.id for p in planned],
+        "ion": [p.line.ion for p in planned],
+        "kind": [p.line.kind for p in planned],
+        "wavelength_air": np.array([p.line.wavelength_air for p in planned]) * aa,
+        "wavelength_rest": np.array([p.rest for p in planned]) * aa,
+        **{c: cols[c] * aa for c in ("ew", "ew_err", "centroid", "centroid_err", "fwhm")},
+        "rv": cols["rv"] * kms,
+        "rv_err": cols["rv_err"] * kms,
+        **{c: cols[c] for c in ("depth", "significance", "chi2_red")},
+        "status": status,
+        "emission": emission,
+        "blended_with": [",".join(p.blended_with) for p in planned],
+        "fit_group": group,
+    }
+    t = QTable(data, copy=False)
     for c in ("ew", "ew_err", "fwhm", "depth"):
         t[c].info.format = ".4f"
     for c in ("centroid", "centroid_err", "rv", "rv_err", "significance", "chi2_red"):
