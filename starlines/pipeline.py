@@ -19,6 +19,8 @@ import re
 import time
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from starlines.errors import StarlinesError
 from starlines.flags import MIN_SIGNIFICANCE, join_flags, spectrum_flags
 from starlines.quality import continuum_snr, noise_note, suspect_reasons
@@ -168,7 +170,10 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
     table = measurement.table
     meta = table.meta
     update_row(row, {k: meta.get(k) for k in ("snr", "vsini", "vsini_err", "vsini_floor",
-                                            "continuum_scatter") if k in meta})
+                                               "continuum_scatter", "resolution_fwhm",
+                                               "resolution_source") if k in meta})
+    good = spec.wavelength[spec.good]
+    row["pixel_step"] = float(np.median(np.diff(good))) if good.size > 1 else math.nan
     row["vsini_limit"] = bool(meta.get("vsini_upper_limit", False))
     snr = getattr(getattr(measurement, "continuum", None), "snr", None)
     if not _finite(row["snr"]) and snr is not None:

@@ -28,6 +28,7 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "he_abundance_err", "rules_subtype", "model_subtype", "probability", "followup_reason",
     "catalogue_type", "catalogue_subtype", "catalogue_rv", "class_notes", "notes", "figure",
     "vsini_limit", "vsini_floor", "continuum_scatter", "snr_continuum", "n_orders",
+    "resolution_fwhm", "resolution_source", "pixel_step",
 )
 
 #: Units of the result columns that have one.
@@ -36,7 +37,7 @@ RESULT_UNITS: dict[str, str] = {
     "logg": "dex", "logg_err": "dex", "vsini": "km / s", "vsini_err": "km / s",
     "rv": "km / s", "rv_err": "km / s", "rv_ccf": "km / s", "rv_ccf_err": "km / s",
     "barycentric_correction": "km / s", "rv2": "km / s", "catalogue_rv": "km / s",
-    "vsini_floor": "km / s",
+    "vsini_floor": "km / s", "resolution_fwhm": "Angstrom", "pixel_step": "Angstrom",
 }
 
 _FLOAT_COLUMNS = {
@@ -44,7 +45,7 @@ _FLOAT_COLUMNS = {
     "logg_err", "he_abundance", "he_abundance_err", "vsini", "vsini_err", "rv", "rv_err",
     "rv_ccf", "rv_ccf_err", "barycentric_correction", "rv2", "followup_score",
     "rules_subtype", "model_subtype", "probability", "catalogue_subtype", "catalogue_rv",
-    "vsini_floor", "continuum_scatter", "snr_continuum",
+    "vsini_floor", "continuum_scatter", "snr_continuum", "resolution_fwhm", "pixel_step",
 }
 _INT_COLUMNS = {"rv_n_lines", "followup_rank", "n_orders"}
 _BOOL_COLUMNS = {"medium_assumed", "vsini_limit"}

@@ -274,7 +274,8 @@ def test_normal_balmer_lines_are_not_suspect():
 
 
 @pytest.mark.parametrize("change,reason", [
-    ({"HI4340": {"status": "not detected", "sig": 1.0}}, "H-gamma not detected"),
+    ({"HI4340": {"status": "not detected", "sig": 0.8, "ew": -1.56, "ew_err": 2.04}},
+     "H-gamma not detected"),
     ({"HI4102": {"ew": 0.3}}, "H-delta EW 0.30 A"),
     ({"HI4340": {"ew": 1.2, "ew_err": 1.5}}, "error 1.50 A larger"),
     ({"HI4102": {"ew": -0.8, "emission": True}}, "H-delta in emission while"),
@@ -304,14 +305,50 @@ def test_wind_filled_h_beta_of_an_emission_line_star_is_not_suspect():
 
 
 def test_continuum_scatter_far_above_der_snr_noise_is_suspect_and_lowers_snr():
-    # white noise: scatter x S/N = 1 (DER_SNR is unbiased, Stoehr et al. 2008)
-    assert fl.spectrum_flags(_row(snr=150.0, continuum_scatter=1 / 140.0), _balmer()) == []
-    ripples = _row(snr=300.0, continuum_scatter=5.0 / 300.0)  # 5x the DER_SNR noise
-    assert fl.spectrum_flags(ripples, _balmer()) == ["suspect-data"]
+    # white noise at native sampling: scatter x S/N = 1 (DER_SNR is unbiased, Stoehr et
+    # al. 2008); 2.5 A FWHM on 0.9 A pixels (MILES) bounds smoothed noise at 1.65
+    known = {"resolution_fwhm": 2.5, "pixel_step": 0.9, "resolution_source": "header"}
+    assert fl.spectrum_flags(_row(snr=150.0, continuum_scatter=1 / 140.0, **known),
+                             _balmer()) == []
+    # 8x the DER_SNR noise: above 4 x 1.65, and its S/N by the scatter is 37.5
+    ripples = _row(snr=300.0, continuum_scatter=8.0 / 300.0, **known)
+    assert set(fl.spectrum_flags(ripples, _balmer())) == {"suspect-data", "low-snr"}
+    # without a stated resolution the bound is unknown: no scatter verdict
+    guessed = dict(known, resolution_source="lines")
+    assert "suspect-data" not in fl.spectrum_flags(
+        _row(snr=300.0, continuum_scatter=8.0 / 300.0, **guessed), _balmer())
     # correlated noise (2x, as in resampled library spectra): S/N 90 by DER_SNR is 45 by
     # the continuum scatter, below the 50 of low-snr
-    smooth = _row(snr=90.0, continuum_scatter=2.0 / 90.0)
+    smooth = _row(snr=90.0, continuum_scatter=2.0 / 90.0, **known)
     assert fl.spectrum_flags(smooth, _balmer()) == ["low-snr"]
+
+
+def test_der_snr_bias_matches_smoothed_white_noise():
+    from scipy.ndimage import gaussian_filter1d
+
+    from starlines.quality import der_snr_bias
+    from starlines.snr import der_snr_noise
+
+    rng = np.random.default_rng(3)
+    assert der_snr_bias(0.0) == 1.0
+    for fwhm_px in (2.78, 4.0, 10.7):  # MILES, demo-like, Jacoby et al. sampling
+        noise = gaussian_filter1d(rng.normal(0.0, 1.0, 200_000), fwhm_px / 2.3548200450309493)
+        measured = float(np.std(noise)) / der_snr_noise(1.0 + noise)
+        # scipy smoothing as the reference; 5 % covers the estimate of 2e5 samples
+        assert der_snr_bias(fwhm_px) == pytest.approx(measured, rel=0.05)
+
+
+def test_degenerate_low_resolution_blend_and_wind_stars_are_not_suspect():
+    from starlines.quality import suspect_reasons
+
+    # H-delta "not detected" with a normal EW (4.5 +- 1.5 A): Si IV / He II share its fit
+    # at ~15 A resolution (Jacoby et al. 1984 spectra, data): no verdict
+    blend = _balmer(HI4102={"status": "not detected", "significance": 2.9, "ew_err": 1.5,
+                            "ew": 4.5})
+    assert suspect_reasons(_row(), blend) == []
+    # an Of supergiant: He II 4686 in emission, H-delta filled in by the wind
+    wind = _balmer(hd=0.1) + [_line("HeII4686", "heii", emission=True, ew=-1.5)]
+    assert suspect_reasons(_row(), wind) == []
 
 
 def test_suspect_data_halves_the_followup_confidence():
