@@ -171,8 +171,9 @@ FLAGS: tuple[Flag, ...] = (
     Flag("suspect-data", "the data look bad although the S/N passes: check the spectrum",
          "a hot star with H-delta, H-gamma or H-beta not detected, weaker than "
          f"{MIN_BALMER_EW:g} A, with an EW error larger than the EW, or in emission while a "
-         f"lower Balmer line is in absorption; or continuum scatter > {SCATTER_EXCESS:g} x "
-         "the DER_SNR noise (reasons in the notes)", 0.0),
+         f"lower Balmer line is in absorption (stars with wind emission excepted); or "
+         f"continuum scatter > {SCATTER_EXCESS:g} x what smoothed noise gives with the DER_SNR "
+         "noise at the stated resolution (reasons in the notes)", 0.0),
     Flag("rv-topocentric", "velocity NOT corrected to the barycentre (topocentric)",
          "mid-exposure time, RA/Dec or observatory site missing, so rv and rv_ccf are "
          "topocentric: up to +-30 km/s off (give the site with --site)", 0.0),
