@@ -24,7 +24,6 @@ the end.
 from __future__ import annotations
 
 import functools
-import json
 import logging
 import math
 import os
@@ -32,6 +31,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 
 from starlines.errors import ConfigError
+from starlines.journal import Journal, reusable
 from starlines.pipeline import (
     RESULT_COLUMNS,
     RESULT_UNITS,
@@ -52,7 +52,6 @@ SPECTRUM_SUFFIXES = (".fits", ".fit", ".fts", ".fits.gz", ".fit.gz", ".fts.gz", 
                      ".dat", ".csv", ".tsv", ".ascii", ".spec", ".ecsv")
 #: Table formats of ``formats=`` and their file extensions.
 TABLE_FORMATS = {"ecsv": ".ecsv", "csv": ".csv", "fits": ".fits"}
-_JOURNAL_VERSION = 2  # 2: the key holds the options fingerprint
 
 
 @dataclass
@@ -116,68 +115,6 @@ def find_spectra(night_dir: str, *, exclude: Iterable[str] = ()) -> tuple[list[s
             path = os.path.join(root, name)
             (spectra if name.lower().endswith(SPECTRUM_SUFFIXES) else ignored).append(path)
     return sorted(spectra), sorted(ignored)
-
-
-class Journal:
-    """Append-only JSON-lines record of finished files (see the module docstring)."""
-
-    def __init__(self, out_dir: str):
-        self.folder = os.path.join(out_dir, ".journal")
-        self.path = os.path.join(self.folder, "files.jsonl")
-
-    def reset(self) -> None:
-        """Forget every finished file."""
-        if os.path.exists(self.path):
-            os.remove(self.path)
-
-    def load(self) -> dict[str, dict]:
-        """Latest record per absolute path; a torn last line (killed run) is skipped."""
-        records: dict[str, dict] = {}
-        if not os.path.exists(self.path):
-            return records
-        with open(self.path, encoding="utf-8") as fh:
-            for text in fh:
-                try:
-                    rec = json.loads(text)
-                except json.JSONDecodeError:
-                    log.warning("journal %s: skipping an unfinished line", self.path)
-                    continue
-                if rec.get("version") == _JOURNAL_VERSION:
-                    records[rec["key"]["path"]] = rec
-        return records
-
-    def append(self, result: FileResult) -> dict:
-        """Record a finished file durably; return the record."""
-        os.makedirs(self.folder, exist_ok=True)
-        rec = {"version": _JOURNAL_VERSION, "key": result.key, "rows": result.rows,
-               "lines": result.lines, "line_units": result.line_units,
-               "seconds": result.seconds, "checksum": result.checksum}
-        text = json.dumps(rec, default=_json_default) + "\n"
-        with open(self.path, "a", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        return rec
-
-
-def _json_default(value):
-    if hasattr(value, "item"):
-        return value.item()
-    if hasattr(value, "tolist"):
-        return value.tolist()
-    return str(value)
-
-
-def _reusable(rec: dict | None, key: dict, figure_dir: str | None) -> bool:
-    if rec is None or rec["key"] != key:
-        return False
-    if figure_dir:
-        for row in rec["rows"]:
-            if row["status"] == "ok" and not (
-                row.get("figure") and os.path.exists(os.path.join(figure_dir, row["figure"]))
-            ):
-                return False
-    return True
 
 
 def _engine_failure(path: str, failure) -> FileResult:
@@ -387,7 +324,7 @@ def triage_night(
     records, todo = {}, []
     for path in paths:
         key = dict(file_key(path), options=fingerprint)
-        if _reusable(old.get(key["path"]), key, figure_dir):
+        if reusable(old.get(key["path"]), key, figure_dir):
             records[key["path"]] = old[key["path"]]
         else:
             todo.append(path)
