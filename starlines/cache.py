@@ -12,8 +12,8 @@ is derived afresh. A cached result is bit for bit what the computation returns.
 Folder: ``$STARLINES_CACHE_DIR`` if set (``off``, ``0``, ``none`` or empty disable the
 cache), else ``$XDG_CACHE_HOME/starlines``, else ``~/.cache/starlines``. The cache never
 makes anything fail: an unwritable folder, a corrupt or foreign file simply means the data
-is computed in memory, as without a cache. Old entries are not pruned (a few MB per code
-version); ``starlines`` never needs them, so the folder can be deleted at any time.
+is computed in memory, as without a cache. Only the :data:`KEEP_ENTRIES` newest entries of
+each kind are kept (a few MB each); the folder can be deleted at any time.
 """
 
 from __future__ import annotations
@@ -43,6 +43,9 @@ __all__ = [
 #: Environment variable naming the cache folder ("off" disables the cache).
 CACHE_ENV = "STARLINES_CACHE_DIR"
 _DISABLED = {"", "0", "off", "none", "no", "false"}
+#: Entries kept per name (one per code version; older ones are deleted when a new one is
+#: written, so the folder stays below ~25 MB however often the code changes).
+KEEP_ENTRIES = 8
 
 
 def cache_dir() -> Path | None:
@@ -142,6 +145,7 @@ def save_arrays(name: str, key: str, arrays: dict[str, np.ndarray]) -> Path | No
         with os.fdopen(fd, "wb") as fh:
             np.savez(fh, **arrays)
         os.replace(tmp, path)
+        _prune(path.parent, name, keep=KEEP_ENTRIES)
         return path
     except Exception:  # full disk, read-only folder, odd array: run without the cache
         if tmp is not None:
@@ -150,6 +154,17 @@ def save_arrays(name: str, key: str, arrays: dict[str, np.ndarray]) -> Path | No
             except OSError:
                 pass
         return None
+
+
+def _prune(folder: Path, name: str, keep: int) -> None:
+    """Delete all but the ``keep`` newest entries of ``name`` (older code versions)."""
+    try:
+        entries = sorted(folder.glob(f"{name}-*.npz"), key=lambda p: p.stat().st_mtime_ns,
+                         reverse=True)
+        for old in entries[keep:]:
+            old.unlink(missing_ok=True)
+    except OSError:  # another process pruned first, or a read-only entry: leave it
+        pass
 
 
 def json_array(obj) -> np.ndarray:

@@ -179,3 +179,12 @@ def test_grid_loads_from_an_uninstalled_source_checkout(tmp_path):
     assert Path(module_file).resolve().is_relative_to(tmp_path.resolve())
     assert Path(grid_path) == (tmp_path / "grids" / grid.GRID_FILENAME).resolve()
     assert int(rows) == len(grid.grid_points())
+
+
+def test_old_entries_are_pruned(cache_in):
+    for k in range(cache.KEEP_ENTRIES + 3):
+        path = cache.save_arrays("demo", f"key{k:02d}", {"a": np.arange(3)})
+        os.utime(path, ns=(k * 10**9, k * 10**9))  # distinct ages, oldest first
+    left = sorted(p.stem for p in _entries(cache_in, "demo"))
+    newest = [f"demo-key{k:02d}" for k in range(3, cache.KEEP_ENTRIES + 3)]
+    assert left == newest
