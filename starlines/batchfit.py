@@ -245,8 +245,8 @@ def _inverse(M: np.ndarray) -> np.ndarray:
         return np.stack([np.linalg.pinv(m) for m in M])
 
 
-def _finish(b: _Batch, p, r, J, pmean) -> list[Solution]:
-    _, _, A = _normal(b, p, r, J, pmean)
+def _finish(b: _Batch, p, r, A) -> list[Solution]:
+    """Solutions at ``p`` (residuals ``r``, Gauss-Newton matrix ``A`` there)."""
     cov = _inverse(_masked(A, b.free)) * (b.free[:, :, None] & b.free[:, None, :])
     nfree, npri = b.free.sum(axis=1), (b.pw > 0).sum(axis=1)
     dof = np.maximum(b.n - (nfree - npri), 1)
@@ -304,7 +304,7 @@ def _run(b: _Batch, max_trials: int, tol: float) -> list[Solution]:
             continue
         fin = np.flatnonzero(frozen | last)
         bf = b.take(fin)
-        for i, sol in zip(fin, _finish(bf, p[fin], r[fin, :bf.N], J[fin, :, :bf.N], pmean[fin])):
+        for i, sol in zip(fin, _finish(bf, p[fin], r[fin, :bf.N], A[fin])):
             out[alive[i]] = sol
         keep = np.flatnonzero(~(frozen | last))
         if keep.size == 0:
