@@ -30,6 +30,7 @@ from starlines.nightflags import (
     night_notes,
     velocity_outliers,
 )
+from starlines.numeric import is_finite as _finite
 from starlines.quality import (
     MIN_BALMER_EW,
     SCATTER_EXCESS,
@@ -223,12 +224,6 @@ def split_flags(text: str) -> list[str]:
     """Inverse of :func:`join_flags`."""
     return [s for s in (text or "").split(",") if s]
 
-
-def _finite(x) -> bool:
-    try:
-        return x is not None and math.isfinite(float(x))
-    except (TypeError, ValueError):
-        return False
 
 
 def _detected(line: Mapping, *, emission: bool) -> bool:

@@ -24,13 +24,13 @@ about the observation. Conventions, all documented here once:
 from __future__ import annotations
 
 import logging
-import math
 import re
 import warnings
 from collections.abc import Mapping
 
 from starlines.errors import InputFormatError, StarlinesWarning
 from starlines.headers_coords import iso_to_mjd, mjd_mid, parse_angle, radec, site
+from starlines.numeric import as_float as _as_float
 from starlines.spectrum import ObservationMeta
 
 __all__ = [
@@ -126,15 +126,6 @@ def angstrom_per_unit(unit) -> float | None:
     except (ValueError, TypeError, u.UnitsError):
         return None
 
-
-def _as_float(value) -> float | None:
-    if isinstance(value, bool):
-        return None
-    try:
-        out = float(value)
-    except (TypeError, ValueError):
-        return None
-    return out if math.isfinite(out) else None
 
 
 # ----------------------------------------------------------------------------- medium

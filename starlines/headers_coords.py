@@ -14,6 +14,8 @@ import math
 import re
 from typing import TYPE_CHECKING
 
+from starlines.numeric import as_float as _as_float
+
 if TYPE_CHECKING:
     from starlines.headers import Cards
     from starlines.spectrum import ObservationMeta
@@ -22,15 +24,6 @@ __all__ = ["parse_angle", "iso_to_mjd", "mjd_mid", "radec", "site"]
 
 log = logging.getLogger("starlines.readers")
 
-
-def _as_float(value) -> float | None:
-    if isinstance(value, bool):
-        return None
-    try:
-        out = float(value)
-    except (TypeError, ValueError):
-        return None
-    return out if math.isfinite(out) else None
 
 
 # ----------------------------------------------------------------------------- angles, time

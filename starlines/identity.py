@@ -22,11 +22,12 @@ sign is not guessed: such a name falls back to the generic key.
 from __future__ import annotations
 
 import logging
-import math
 import re
 import unicodedata
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+
+from starlines.numeric import is_finite as _finite
 
 __all__ = [
     "DEFAULT_RADIUS_ARCSEC",
@@ -122,12 +123,6 @@ class Match:
     separation_arcsec: float | None = None
     warning: str | None = None
 
-
-def _finite(x) -> bool:
-    try:
-        return x is not None and math.isfinite(float(x))
-    except (TypeError, ValueError):
-        return False
 
 
 def _fold(name: str) -> str:

@@ -12,6 +12,8 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping, Sequence
 
+from starlines.numeric import is_finite as _finite
+
 __all__ = ["velocity_outliers", "night_flags", "night_notes", "OUTLIER_NSIGMA",
            "OUTLIER_FLOOR_KMS", "SYSTEMIC_TOLERANCE_KMS", "SUBTYPE_TOLERANCE",
            "VELOCITY_FRAMES"]
@@ -52,12 +54,6 @@ def join_flags(names) -> str:
 
     return join(names)
 
-
-def _finite(x) -> bool:
-    try:
-        return x is not None and math.isfinite(float(x))
-    except (TypeError, ValueError):
-        return False
 
 
 def velocity_outliers(

@@ -23,6 +23,7 @@ import numpy as np
 
 from starlines.errors import StarlinesError
 from starlines.flags import MIN_SIGNIFICANCE, join_flags, spectrum_flags
+from starlines.numeric import is_finite as _finite
 from starlines.quality import continuum_snr, noise_note, suspect_reasons
 from starlines.resultrows import (
     RESULT_COLUMNS,
@@ -218,12 +219,6 @@ def _quality_notes(row: dict, lines: list[dict]) -> list[str]:
         out.append(note)
     return out
 
-
-def _finite(x) -> bool:
-    try:
-        return math.isfinite(float(x))
-    except (TypeError, ValueError):
-        return False
 
 
 def figure_name(row: dict) -> str:

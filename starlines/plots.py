@@ -13,6 +13,8 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
+from starlines.numeric import is_finite as _finite
+
 __all__ = [
     "plot_normalized",
     "plot_continuum",
@@ -57,12 +59,6 @@ def _gaussian_model(wave: np.ndarray, lines: Sequence[Mapping]) -> np.ndarray:
         )
     return model
 
-
-def _finite(x) -> bool:
-    try:
-        return math.isfinite(float(x))
-    except (TypeError, ValueError):
-        return False
 
 
 def _measured(lines: Sequence[Mapping]) -> list[Mapping]:

@@ -26,6 +26,7 @@ import numpy as np
 
 from starlines.errors import ConfigError, StarlinesError
 from starlines.identity import DEFAULT_RADIUS_ARCSEC, normalise_name
+from starlines.numeric import is_finite as _finite
 
 __all__ = ["Target", "read_targets", "match_targets"]
 
@@ -170,9 +171,3 @@ def match_targets(
         out.append(hit)
     return out
 
-
-def _finite(x) -> bool:
-    try:
-        return math.isfinite(float(x))
-    except (TypeError, ValueError):
-        return False
