@@ -60,7 +60,8 @@ def configure_astropy_offline(*, remote_timeout: float = 0.1) -> None:
         data_conf.allow_internet = False
         data_conf.remote_timeout = remote_timeout
         _configured_pid = pid
-        log.debug("astropy configured offline (IERS table: %s)", iers_table_vintage())
+        if log.isEnabledFor(logging.DEBUG):  # reading the table costs ~1 s: only when asked
+            log.debug("astropy configured offline (IERS table: %s)", iers_table_vintage())
 
 
 @lru_cache(maxsize=1)
