@@ -65,7 +65,8 @@ def _setup_logging(verbose: bool, quiet: bool) -> None:
     handler.setFormatter(logging.Formatter("%(levelname)s: %(message)s"))
     log.handlers[:] = [handler]
     log.setLevel(level)
-    log.propagate = False
+    # propagation stays on: an application or test harness that listens at the root keeps
+    # hearing starlines (the root has no handler of its own in a plain command-line run)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -130,7 +130,7 @@ def test_coordinate_only_star_takes_the_name_seen_later(tmp_path):
 
 
 def test_same_name_far_apart_in_the_archive(tmp_path, caplog):
-    with Archive(tmp_path / "a.db") as arch, caplog.at_level(logging.WARNING):
+    with Archive(tmp_path / "a.db") as arch, caplog.at_level(logging.WARNING, logger="starlines"):
         arch.store_spectrum({"file": "a.fits", "object": "HD 5", "ra": 10.0, "dec": 20.0,
                              "checksum": "a"}, [])
         arch.store_spectrum({"file": "b.fits", "object": "HD5", "ra": 10.0, "dec": 21.0,
