@@ -144,6 +144,15 @@ def log_ratio(num: LineValue, den: LineValue) -> tuple[float, float, str]:
     return math.nan, math.nan, "none"
 
 
+
+def _rule_ratio(values: Mapping[str, LineValue], numerator, denominator):
+    """:func:`log_ratio` of the summed lines; None when a line is missing or neither is detected."""
+    num, den = _sum(values, numerator), _sum(values, denominator)
+    if num is None or den is None:
+        return None
+    val, err, limit = log_ratio(num, den)
+    return None if limit == "none" else (val, err, limit)
+
 @dataclass(frozen=True)
 class RuleResult:
     """What one rule says: a subtype (or a limit on it) and its error."""
@@ -188,12 +197,10 @@ class LogWPrimeRule:
 
     def evaluate(self, values: Mapping[str, LineValue]) -> RuleResult | None:
         """Apply the rule; None when either line is missing or neither is detected."""
-        num, den = _sum(values, self.numerator), _sum(values, self.denominator)
-        if num is None or den is None:
+        ratio = _rule_ratio(values, self.numerator, self.denominator)
+        if ratio is None:
             return None
-        val, err, limit = log_ratio(num, den)
-        if limit == "none":
-            return None
+        val, err, limit = ratio
         sub = self.subtype_of(val)
         if limit == "lower" or val > self.edges[-1]:
             # He II weak or absent: at least this subtype
@@ -242,12 +249,10 @@ class RatioCurveRule:
         """Apply the rule; None when uncalibrated, lines missing or undetected."""
         if self.knots is None:
             return None
-        num, den = _sum(values, self.numerator), _sum(values, self.denominator)
-        if num is None or den is None:
+        ratio = _rule_ratio(values, self.numerator, self.denominator)
+        if ratio is None:
             return None
-        val, err, limit = log_ratio(num, den)
-        if limit == "none":
-            return None
+        val, err, limit = ratio
         sub, end = self.subtype_of(val)
         if limit:
             # a limit on the ratio is a limit on the subtype in the curve's direction
