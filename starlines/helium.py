@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import lru_cache
 
 import numpy as np
@@ -101,6 +101,7 @@ def _invert(h_ax: np.ndarray, ew: np.ndarray, observed: float) -> tuple[float, b
 
 def helium_from_ews(values: Mapping[str, LineValue], teff: float, logg: float, *,
                     teff_err: float = 0.0, logg_err: float = 0.0,
+                    recovery: Mapping[str, float] | None = None,
                     path=None) -> HeliumEstimate | None:
     """He/H by number from the He I EWs of one spectrum.
 
@@ -113,6 +114,11 @@ def helium_from_ews(values: Mapping[str, LineValue], teff: float, logg: float, *
     teff_err, logg_err : float
         Their errors; the estimate is repeated at Teff +- teff_err and log g +- logg_err
         and the change enters the error.
+    recovery : mapping of line id -> float, optional
+        Fraction of the true EW the measurement stage recovers for each line
+        (:func:`starlines.recovery.recovery_factors`); measured EWs and errors are divided
+        by it before the comparison with the grid, and lines without a factor are not
+        used. Without it the measured EWs are compared with the grid as they are.
 
     Returns
     -------
@@ -127,8 +133,10 @@ def helium_from_ews(values: Mapping[str, LineValue], teff: float, logg: float, *
     logs, errs, used, extra = [], [], [], False
     for ident in HE_I_LINES:
         v = values.get(ident)
-        if v is None or not v.detected:
+        if v is None or not v.detected or (recovery is not None and ident not in recovery):
             continue
+        if recovery is not None:
+            v = replace(v, ew=v.ew / recovery[ident], err=v.err / recovery[ident])
         h_ax, ew = grid_he_curve(ident, teff, logg, path)
         if ew[np.argmin(np.abs(h_ax - 0.1))] < MIN_PREDICTED_EW:
             continue
