@@ -25,7 +25,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from starlines.errors import ClassificationError
-from starlines.flags import HE_NORMAL, HE_TOLERANCE, LOW_SNR, SUBTYPE_TOLERANCE
+from starlines.flags import HE_NORMAL, HE_TOLERANCE, LOW_SNR, SUBTYPE_TOLERANCE, helium_flag
 from starlines.lumrules import (
     LUMINOSITY_RULES,
     balmer_emission,
@@ -33,6 +33,7 @@ from starlines.lumrules import (
     of_qualifier,
     wr_like,
 )
+from starlines.numeric import as_float
 from starlines.rules import PRIMARY, LineValue, RuleResult, line_values
 from starlines.sptype import format_sptype
 from starlines.teffscale import lumclass_from_number
@@ -60,6 +61,7 @@ class Classification:
     logg_err: float = math.nan
     he_abundance: float = math.nan
     he_abundance_err: float = math.nan
+    helium_sigma: float = math.nan
     probability: float = math.nan
     rules_subtype: float = math.nan
     model_subtype: float = math.nan
@@ -221,7 +223,7 @@ def classify(measurement_or_line_table, *, model=None, secondary_rules=None) -> 
         out.teff, out.teff_err = est["teff"]
         out.logg, out.logg_err = est["logg"]
         out.he_abundance, out.he_abundance_err = est["he"]
-        _helium_from_lines(values, out, notes)
+        _helium_from_lines(values, out, notes, measurement_or_line_table, table)
     sub, err, uncertain = _final_subtype(r_sub, r_err, m_sub, m_err, out.flags)
     if not math.isfinite(sub):
         out.flags.append("not-hot-star")
@@ -275,27 +277,66 @@ def _qualifiers(values, subtype: float, flags: list[str]) -> str:
     return qual
 
 
-def _helium_from_lines(values, out: Classification, notes: list[str]) -> None:
-    """Note the direct He I estimate of He/H (:mod:`starlines.helium`) beside the model's."""
-    from starlines.helium import helium_from_ews
+def _helium_from_lines(values, out: Classification, notes: list[str], source, table) -> None:
+    """He/H from the EWs, corrected for what the measurement stage recovers.
 
+    When the line table carries the observing conditions (resolution, S/N), Teff, log g
+    and He/H are fitted together to the H, He I and He II EWs (:mod:`starlines.ewfit`,
+    with the recovery factors of :mod:`starlines.recovery`), and the fit's He/H and the
+    significance of a departure from normal replace the model's He/H, which is read
+    from line ratios where helium is degenerate with temperature and gravity and is
+    quantized to the grid's He/H nodes; the model's value goes to the notes. Without the
+    conditions, when the resolution is only assumed (not from the header or the lines)
+    or coarser than :data:`starlines.ewfit.MAX_RESOLUTION_FWHM`, or when the fit has too
+    few lines, the
+    model's He/H stays and the direct
+    He I estimate (:mod:`starlines.helium`) is only noted.
+    """
+    from starlines.ewfit import FIT_LINES, MAX_RESOLUTION_FWHM, fit_ews
+    from starlines.helium import helium_from_ews
+    from starlines.recovery import recovery_factors
+
+    meta = getattr(table, "meta", {}) or {}
+    fwhm, snr = as_float(meta.get("resolution_fwhm")), as_float(meta.get("snr"))
+    vsini = as_float(meta.get("vsini"))
+    rec = None
+    if fwhm is not None and snr is not None:
+        rec = recovery_factors(FIT_LINES, teff=out.teff, logg=out.logg, resolution_fwhm=fwhm,
+                               pixel_step=_pixel_step(source), snr=snr,
+                               vsini=0.0 if vsini is None or meta.get("vsini_upper_limit")
+                               else vsini)
+        known = not str(meta.get("resolution_source", "")).startswith("assumed")
+        fit = None if fwhm > MAX_RESOLUTION_FWHM or not known else fit_ews(
+            values, rec, teff0=out.teff, teff0_err=out.teff_err, logg0=out.logg,
+            normal=(HE_NORMAL - HE_TOLERANCE, HE_NORMAL + HE_TOLERANCE))
+        if fit is not None:
+            notes.append(f"model He/H {out.he_abundance:.2f} +- {out.he_abundance_err:.2f}; "
+                         f"EW fit He/H {fit.he:.3f} +- {fit.he_err:.3f}, log g "
+                         f"{fit.logg:.2f} +- {fit.logg_err:.2f} ({len(fit.lines)} lines, "
+                         f"reduced chi2 {fit.chi2_red:.2f})")
+            out.he_abundance, out.he_abundance_err = fit.he, fit.he_err
+            out.helium_sigma = fit.sigma_outside(HE_NORMAL - HE_TOLERANCE,
+                                                 HE_NORMAL + HE_TOLERANCE)
+            return
     h = helium_from_ews(values, out.teff, out.logg, teff_err=out.teff_err,
-                        logg_err=out.logg_err)
+                        logg_err=out.logg_err, recovery=rec)
     if h is None:
         notes.append("He/H from the model's line ratios")
         return
-    # A second check, reported in the notes only: on synthetic spectra the measurement
-    # stage returns He I 4471/4026 EWs 15-25 % below the model's (B stars), which biases
-    # this estimate low (normal demo stars 0.04-0.09), so the flags stay on the model's He/H.
     notes.append(f"He/H {h.he:.3f} +- {h.err:.3f} from He I EWs ({len(h.lines)} lines"
-                 + (", beyond the grid's He/H axis" if h.extrapolated else "") + ")")
+                 + (", beyond the grid's He/H axis" if h.extrapolated else "")
+                 + "; flags use the model's He/H)")
+
+
+def _pixel_step(source) -> float | None:
+    spec = getattr(source, "spectrum", None)
+    w = getattr(spec, "wavelength", None)
+    if w is None or len(w) < 2:
+        return None
+    return float(np.median(np.diff(np.asarray(w, float))))
 
 
 def _helium_flags(out: Classification) -> None:
-    y, e = out.he_abundance, out.he_abundance_err
-    if not math.isfinite(y):
-        return
-    e = e if math.isfinite(e) else 0.0
-    dy = y - HE_NORMAL
-    if abs(dy) > HE_TOLERANCE and abs(dy) > 3.0 * e:
-        out.flags.append("helium-strong" if dy > 0 else "helium-weak")
+    flag = helium_flag(out.he_abundance, out.he_abundance_err, out.helium_sigma)
+    if flag:
+        out.flags.append(flag)

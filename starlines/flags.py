@@ -60,6 +60,8 @@ __all__ = [
     "SUBTYPE_TOLERANCE",
     "HE_NORMAL",
     "HE_TOLERANCE",
+    "HELIUM_SIGMA",
+    "helium_flag",
     "MIN_SIGNIFICANCE",
     "OF_LATEST_SUBTYPE",
     "VELOCITY_FRAMES",
@@ -102,6 +104,8 @@ RV_METHOD_TOLERANCE_KMS = 15.0
 #: which a star is helium-strong or helium-weak (also at least 3 sigma).
 HE_NORMAL = 0.1
 HE_TOLERANCE = 0.05
+#: Significance (sigma) with which the normal range must be excluded.
+HELIUM_SIGMA = 3.0
 #: A line counts as detected when measured with at least this significance (sigma).
 MIN_SIGNIFICANCE = 3.0
 
@@ -150,9 +154,9 @@ FLAGS: tuple[Flag, ...] = (
          "candidate); never from an upper limit (below the resolution floor) nor from "
          "a double-lined binary", 2.0),
     Flag("helium-strong", "helium lines too strong for the subtype",
-         f"He/H by number > {HE_NORMAL:g} + {HE_TOLERANCE:g} and > 3 sigma above", 3.0),
+         f"He/H by number above {HE_NORMAL:g} + {HE_TOLERANCE:g} at > {HELIUM_SIGMA:g} sigma", 3.0),
     Flag("helium-weak", "helium lines too weak for the subtype",
-         f"He/H by number < {HE_NORMAL:g} - {HE_TOLERANCE:g} and > 3 sigma below", 3.0),
+         f"He/H by number below {HE_NORMAL:g} - {HE_TOLERANCE:g} at > {HELIUM_SIGMA:g} sigma", 3.0),
     Flag("type-disagreement", "line-ratio rules and model disagree on the type",
          f"|rules subtype - model subtype| > {SUBTYPE_TOLERANCE:g} subtype", 1.0),
     Flag("catalogue-type-differs", "type differs from the target list",
@@ -254,15 +258,31 @@ def _emission_flags(lines: Sequence[Mapping], subtype=math.nan) -> set[str]:
     return out
 
 
+def helium_flag(he, he_err, sigma=None) -> str | None:
+    """``helium-strong``, ``helium-weak`` or None for one He/H estimate.
+
+    ``sigma`` is the significance with which the fit excludes the normal range
+    HE_NORMAL +- HE_TOLERANCE (positive above, negative below; profile likelihood of the
+    joint EW fit, :meth:`starlines.ewfit.EwFit.sigma_outside`); when it is missing (NaN,
+    or older tables) the symmetric error ``he_err`` is used instead.
+    """
+    if _finite(sigma):
+        if abs(float(sigma)) > HELIUM_SIGMA:
+            return "helium-strong" if float(sigma) > 0 else "helium-weak"
+        return None
+    if not _finite(he):
+        return None
+    err = float(he_err) if _finite(he_err) else 0.0
+    dy = float(he) - HE_NORMAL
+    if abs(dy) > HE_TOLERANCE and abs(dy) > HELIUM_SIGMA * err:
+        return "helium-strong" if dy > 0 else "helium-weak"
+    return None
+
+
 def _helium_flags(row: Mapping) -> set[str]:
-    y, err = row.get("he_abundance"), row.get("he_abundance_err")
-    if not _finite(y):
-        return set()
-    err = float(err) if _finite(err) else 0.0
-    dy = float(y) - HE_NORMAL
-    if abs(dy) > HE_TOLERANCE and abs(dy) > 3 * err:
-        return {"helium-strong" if dy > 0 else "helium-weak"}
-    return set()
+    f = helium_flag(row.get("he_abundance"), row.get("he_abundance_err"),
+                    row.get("helium_sigma"))
+    return {f} if f else set()
 
 
 def spectrum_flags(

@@ -25,7 +25,8 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "rv_ccf", "rv_ccf_err", "rv_frame", "barycentric_correction", "rv2", "flags",
     "followup_score", "followup_rank",
     # extensions
-    "he_abundance_err", "rules_subtype", "model_subtype", "probability", "followup_reason",
+    "he_abundance_err", "helium_sigma", "rules_subtype", "model_subtype", "probability",
+    "followup_reason",
     "catalogue_type", "catalogue_subtype", "catalogue_rv", "class_notes", "notes", "figure",
     "vsini_limit", "vsini_floor", "continuum_scatter", "snr_continuum", "n_orders",
     "resolution_fwhm", "resolution_source", "pixel_step",
@@ -42,7 +43,8 @@ RESULT_UNITS: dict[str, str] = {
 
 _FLOAT_COLUMNS = {
     "mjd_mid", "ra", "dec", "snr", "subtype", "subtype_err", "teff", "teff_err", "logg",
-    "logg_err", "he_abundance", "he_abundance_err", "vsini", "vsini_err", "rv", "rv_err",
+    "logg_err", "he_abundance", "he_abundance_err", "helium_sigma", "vsini", "vsini_err",
+    "rv", "rv_err",
     "rv_ccf", "rv_ccf_err", "barycentric_correction", "rv2", "followup_score",
     "rules_subtype", "model_subtype", "probability", "catalogue_subtype", "catalogue_rv",
     "vsini_floor", "continuum_scatter", "snr_continuum", "resolution_fwhm", "pixel_step",

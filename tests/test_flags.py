@@ -355,3 +355,11 @@ def test_suspect_data_halves_the_followup_confidence():
     row = _row(snr=200.0, flags="double-lined,suspect-data")
     assert confidence(row) == pytest.approx(0.5)
     assert "suspect data" in rank_rows([row])[0]["followup_reason"]
+
+
+def test_helium_sigma_column_decides_when_present():
+    # the joint EW fit's profile significance (starlines.ewfit) overrides the symmetric error
+    strong = _row(he_abundance=0.31, he_abundance_err=0.11, helium_sigma=4.9)
+    unsure = _row(he_abundance=0.31, he_abundance_err=0.01, helium_sigma=1.2)
+    assert fl.spectrum_flags(strong, HE_LINES) == ["helium-strong"]
+    assert fl.spectrum_flags(unsure, HE_LINES) == []
