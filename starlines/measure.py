@@ -37,7 +37,13 @@ from starlines.groupfit import DETECTION_SIGMA, fit_groups
 from starlines.lines import Line, line, lines_in_range
 from starlines.profiles import C_KMS, FWHM_PER_SIGMA, lorentz_fraction, profile_fwhm
 from starlines.spectrum import Spectrum
-from starlines.vsini import VsiniResult, vsini_kernel_fit
+from starlines.vsini import (
+    LineEstimate,
+    VsiniResult,
+    combine_estimates,
+    kernel_fit_estimate,
+    resolution_floor,
+)
 
 __all__ = ["measure_lines", "measure_spectrum", "Measurement", "STATUSES",
            "DETECTION_SIGMA", "NEAR_MARGIN"]
@@ -46,8 +52,30 @@ __all__ = ["measure_lines", "measure_spectrum", "Measurement", "STATUSES",
 STATUSES = ("measured", "not detected", "blended", "outside range", "masked")
 #: Lines up to this far (Angstrom) outside the spectrum still get an "outside range" row.
 NEAR_MARGIN = 30.0
-#: He I lines tried, in order, for v sin i.
-VSINI_LINES = ("HeI4471", "HeI4922", "HeI4388", "HeI4026")
+#: Lines for v sin i in tiers of increasing intrinsic width: (tier name, line ids). The
+#: first tier with a line measured well enough is used; within a tier every usable line is
+#: fitted and the results are combined (:func:`starlines.vsini.combine_estimates`), except
+#: in the diffuse He I tier, where the first usable line in the order given is fitted
+#: alone (their Stark widths differ by factors of several, so a mean would mix biases).
+#: Common practice for OB stars (from memory): v sin i from Si III 4553/4568/4575 and
+#: Mg II 4481 in B stars, Si IV 4089/4116 in late O stars (metal lines: Stark widths small
+#: at photospheric densities); next He I lines with an s or p upper level (4713 2p 3P -
+#: 4s 3S, 5016 2s 1S - 3p 1P), narrower than the diffuse lines but strong enough to
+#: saturate (and read high) in helium-rich stars; last the diffuse He I lines (nd/nf upper
+#: levels with forbidden components: large Stark widths that the kernel fit does not model,
+#: so they read high for slow rotators) when nothing narrower is measured well enough.
+#: Known blends not in the catalogue (from memory): Mg II 4481 with Al III 4480 in
+#: supergiants, Si IV 4089 with O II 4089; blends read high, never low.
+VSINI_TIERS = (
+    ("metal", ("SiIII4553", "SiIII4568", "SiIII4575", "MgII4481", "SiIV4116", "SiIV4089")),
+    ("He I s/p", ("HeI4713", "HeI5016")),
+    ("diffuse He I", ("HeI4471", "HeI4922", "HeI4388", "HeI4026")),
+)
+#: All v sin i lines in the order in which they are considered.
+VSINI_LINES = tuple(ident for _, ids in VSINI_TIERS for ident in ids)
+#: Minimum detection significance (|EW| / error) of a line used for v sin i: the profile
+#: shape, not only the area, must be well defined (a choice: 2.5x the detection limit).
+VSINI_MIN_SIGMA = 10.0
 
 _COLUMNS = ("ew", "ew_err", "centroid", "centroid_err", "rv", "rv_err", "fwhm", "depth",
             "significance", "chi2_red")
@@ -87,25 +115,53 @@ def _component_row(fit: BlendFit, k: int) -> dict:
     return row
 
 
-def _vsini(results, fits, w, y, e, good, cf, resolution, res_source) -> VsiniResult | None:
-    for ident in VSINI_LINES:
-        r = results.get(ident)
-        if r is None or r["status"] != "measured" or r["emission"] or r["significance"] < 10:
-            continue
-        fit, k = fits[ident]
-        half = 1.2 * r["fwhm"] + 2.0 * resolution
-        i0, i1 = np.searchsorted(w, [r["centroid"] - half, r["centroid"] + half])
-        sel = good[i0:i1]
-        x = w[i0:i1][sel]
-        if x.size < 10:
-            continue
-        base = fit.p[0] + fit.p[1] * (x - fit.model.xmid) / fit.model.halfspan
-        others = sum((fit.model.component_profile(fit.p, x, j)
-                      for j in range(len(fit.model.components)) if j != k), np.zeros_like(x))
-        yc = (y[i0:i1][sel] + others) / base
-        return vsini_kernel_fit(x, yc, e[i0:i1][sel], rest=fit.model.components[k].rest,
-                                centre=r["centroid"], instrument_fwhm=resolution,
-                                line_id=ident)
+def _vsini_window(ident, results, fits, w, y, e, good, resolution):
+    """Pixels of line ``ident`` with its fitted neighbours removed, or None if unusable.
+
+    Returns ``(x, y_clean, err, rest, centre)``: wavelength (Angstrom), flux divided by the
+    fitted local baseline after adding back the other components of its fit group, error.
+    """
+    r = results.get(ident)
+    if (r is None or r["status"] != "measured" or r["emission"]
+            or r["significance"] < VSINI_MIN_SIGMA):
+        return None
+    fit, k = fits[ident]
+    half = 1.2 * r["fwhm"] + 2.0 * resolution
+    i0, i1 = np.searchsorted(w, [r["centroid"] - half, r["centroid"] + half])
+    sel = good[i0:i1]
+    x = w[i0:i1][sel]
+    if x.size < 10:
+        return None
+    base = fit.p[0] + fit.p[1] * (x - fit.model.xmid) / fit.model.halfspan
+    others = sum((fit.model.component_profile(fit.p, x, j)
+                  for j in range(len(fit.model.components)) if j != k), np.zeros_like(x))
+    yc = (y[i0:i1][sel] + others) / base
+    return x, yc, e[i0:i1][sel], fit.model.components[k].rest, r["centroid"]
+
+
+def _line_estimate(ident, window, resolution) -> LineEstimate:
+    x, yc, err, rest, centre = window
+    v, v_err = kernel_fit_estimate(x, yc, err, centre=centre, instrument_fwhm=resolution)
+    return LineEstimate(ident, v, v_err, resolution_floor(rest, resolution))
+
+
+def _vsini(results, fits, w, y, e, good, resolution) -> VsiniResult | None:
+    """v sin i from the first tier of :data:`VSINI_TIERS` with a usable line; None if none."""
+    for tier, ids in VSINI_TIERS:
+        estimates = []
+        for ident in ids:
+            win = _vsini_window(ident, results, fits, w, y, e, good, resolution)
+            if win is None:
+                continue
+            estimates.append(_line_estimate(ident, win, resolution))
+            if tier == "diffuse He I":
+                break
+        if estimates:
+            res = combine_estimates(estimates, f"kernel fit, {tier} lines")
+            n_kept = res.line.count(",") + 1
+            res.method += f" ({n_kept} of {len(estimates)} kept)" if n_kept < len(estimates) \
+                else f" ({n_kept})"
+            return res
     return None
 
 
@@ -186,7 +242,7 @@ def _measure_lines(spec: Spectrum, continuum: ContinuumFit | None, lines):
             results[pl.line.id] = dict(_component_row(fit, k), fit_group=gi)
             fits[pl.line.id] = (fit, k)
     resolution, res_source = _resolution(cf, results, planned)
-    vs = _vsini(results, fits, w, y, e, good, cf, resolution, res_source)
+    vs = _vsini(results, fits, w, y, e, good, resolution)
     return _build_table(spec, cf, planned, results, resolution, res_source, vs)
 
 
