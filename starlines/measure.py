@@ -15,6 +15,12 @@ reduced chi-square of the fit residuals (never below 1 with a stated uncertainty
 so unmodelled structure, correlated noise and weak neighbours inflate the error instead of
 being ignored; the baseline prior adds the continuum-placement term.
 
+v sin i (``meta["vsini"]``) comes from the kernel fit of :mod:`starlines.vsini` to the
+intrinsically narrowest lines measured at >= ``VSINI_MIN_SIGMA``: metal lines, then He I
+lines with s/p upper levels, combined, and a diffuse He I line only as the fallback
+(``VSINI_TIERS``, :func:`_vsini`); ``vsini_line`` names the lines used, ``vsini_method``
+the tiers, ``vsini_upper_limit`` / ``vsini_floor`` the resolution floor.
+
 Differences from a plain integration such as ``specutils.analysis.equivalent_width``: that
 integrates 1 - F/F_c over a fixed window on a given continuum; here blends are separated by
 the profile fit, a local baseline absorbs residual continuum slope, wings beyond the window
