@@ -182,14 +182,21 @@ def test_vsini_limits_and_data_quality_of_the_demo(triaged):
     # (the kernel fit ignores intrinsic line widths and reads high, starlines.vsini)
     fast = by["H7-17"]
     assert not fast["vsini_limit"] and fast["vsini"] == pytest.approx(340.0, abs=60.0)
-    # at 2.0-2.6 A FWHM the floor c FWHM / lambda at 4471 A is 134-174 km/s (common
-    # practice); the normal stars rotate at 30-120 km/s, so an upper limit must lie above
-    # the injected value and never raise fast-rotator
+    # the planted Be star (250 km/s) is measured within 20 % (narrow lines of the forward
+    # model, tests/test_vsini.py); the helium-strong slow rotator (60 km/s) is an upper
+    # limit: its He I 4471 alone reads ~230 km/s (Stark width not in the kernel fit)
+    be = by["H7-11"]
+    assert not be["vsini_limit"] and be["vsini"] == pytest.approx(250.0, rel=0.20)
+    assert by["FLD-205"]["vsini_limit"]
+    assert "fast-rotator" not in split_flags(by["FLD-205"]["flags"])
+    # at 2.0-2.6 A FWHM the floor c FWHM / lambda at the v sin i lines (4089-5016 A) is
+    # 119-191 km/s (common practice); the normal stars rotate at 30-120 km/s, so an upper
+    # limit must lie above the injected value and never raise fast-rotator
     limits = [n for n in NORMAL if by[n]["vsini_limit"]]
     assert len(limits) >= len(NORMAL) // 2
     for n in limits:
         assert by[n]["vsini"] >= stars[n].vsini
-        assert 130.0 <= by[n]["vsini_floor"] <= 180.0
+        assert 115.0 <= by[n]["vsini_floor"] <= 195.0
     # the short exposure (injected S/N 22, white noise) is low-S/N but not suspect data:
     # DER_SNR is right for independent pixels (Stoehr et al. 2008) and its Balmer lines
     # are detected

@@ -202,9 +202,10 @@ def test_vsini_below_the_resolution_floor_is_an_upper_limit_not_a_fast_rotator(t
 
     from starlines.report import vsini_text
 
-    # 3.0 A FWHM: floor c FWHM / lambda = 299792.458 x 3.0 / 4471.48 = 201.1 km/s at He I
-    # 4471 (common practice), above the 200 km/s fast-rotator threshold; the star
-    # rotates at 60 km/s, so its v sin i can only be an upper limit
+    # 3.0 A FWHM: floor c FWHM / lambda (common practice) = 179-220 km/s at the v sin i
+    # lines (Si IV 4089 to He I 5016, starlines.measure.VSINI_TIERS), about the 200 km/s
+    # fast-rotator threshold; the star rotates at 60 km/s, so its v sin i can only be an
+    # upper limit
     wave = 3850.0 + 0.6 * np.arange(2100)
     hdu = fits.PrimaryHDU(_synthetic(wave, vsini=60.0, fwhm=3.0).astype(np.float32))
     hdu.header.update(CRVAL1=3850.0, CDELT1=0.6, CRPIX1=1.0, CTYPE1="AWAV",
@@ -214,7 +215,8 @@ def test_vsini_below_the_resolution_floor_is_an_upper_limit_not_a_fast_rotator(t
     (row,) = analyse_file(tmp_path / "slow.fits").rows
     assert row["status"] == "ok"
     assert row["vsini_limit"] is True
-    assert row["vsini_floor"] == pytest.approx(201.1, abs=0.5)
+    c_kms = 299792.458
+    assert c_kms * 3.0 / 5015.7 - 0.5 <= row["vsini_floor"] <= c_kms * 3.0 / 4088.9 + 0.5
     assert row["vsini"] >= row["vsini_floor"] - 0.5 and np.isnan(row["vsini_err"])
     assert "fast-rotator" not in row["flags"]
     assert vsini_text(row) == f"&lt; {row['vsini']:.0f}"

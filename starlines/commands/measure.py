@@ -32,7 +32,7 @@ def _summary(table) -> str:
     elif m["vsini"] == m["vsini"]:  # not NaN
         vs = f"v sin i = {m['vsini']:.0f} +- {m['vsini_err']:.0f} km/s ({m['vsini_line']})"
     else:
-        vs = "v sin i: no clean He I line"
+        vs = "v sin i: no line measured well enough (starlines.measure.VSINI_TIERS)"
     return (f"S/N {m['snr']:.0f} ({m['snr_source']}), {m['medium']}"
             f"{' (assumed)' if m['medium_assumed'] else ''}, resolution "
             f"{m['resolution_fwhm']:.2f} A ({m['resolution_source']}), continuum scatter "
