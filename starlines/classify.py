@@ -292,7 +292,7 @@ def _helium_from_lines(values, out: Classification, notes: list[str], source, ta
     model's He/H stays and the direct
     He I estimate (:mod:`starlines.helium`) is only noted.
     """
-    from starlines.ewfit import FIT_LINES, MAX_RESOLUTION_FWHM, fit_ews
+    from starlines.ewfit import FIT_LINES, MAX_RESOLUTION_FWHM, enough_lines, fit_ews
     from starlines.helium import helium_from_ews
     from starlines.recovery import recovery_factors
 
@@ -300,7 +300,8 @@ def _helium_from_lines(values, out: Classification, notes: list[str], source, ta
     fwhm, snr = as_float(meta.get("resolution_fwhm")), as_float(meta.get("snr"))
     vsini = as_float(meta.get("vsini"))
     rec = None
-    if fwhm is not None and snr is not None:
+    detected = [k for k in FIT_LINES if k in values and values[k].detected]
+    if fwhm is not None and snr is not None and enough_lines(detected):
         rec = recovery_factors(FIT_LINES, teff=out.teff, logg=out.logg, resolution_fwhm=fwhm,
                                pixel_step=_pixel_step(source), snr=snr,
                                vsini=0.0 if vsini is None or meta.get("vsini_upper_limit")

@@ -36,7 +36,7 @@ import numpy as np
 
 from starlines.rules import LineValue
 
-__all__ = ["EwFit", "fit_ews", "FIT_LINES", "MODEL_ERROR", "TEFF_PRIOR_FLOOR",
+__all__ = ["EwFit", "fit_ews", "enough_lines", "FIT_LINES", "MODEL_ERROR", "TEFF_PRIOR_FLOOR",
            "MAX_RESOLUTION_FWHM"]
 
 #: Lines fitted: Balmer lines free of strong blends at R ~ 2000 (H-epsilon sits on Ca II
@@ -157,6 +157,14 @@ def _observed(values: Mapping[str, LineValue], recovery: Mapping[str, float]):
     return np.array(idx, int), np.array(y), np.array(s)
 
 
+def enough_lines(names) -> bool:
+    """True when the line ids allow a fit: at least :data:`MIN_LINES`, two of them He I
+    and one Balmer line."""
+    names = list(names)
+    n_he1 = sum(n.startswith("HeI") and not n.startswith("HeII") for n in names)
+    return len(names) >= MIN_LINES and n_he1 >= 2 and any(n.startswith("HI") for n in names)
+
+
 def fit_ews(values: Mapping[str, LineValue], recovery: Mapping[str, float], *,
             teff0: float, teff0_err: float, logg0: float,
             normal: tuple[float, float] = (0.05, 0.15), path=None) -> EwFit | None:
@@ -190,9 +198,7 @@ def fit_ews(values: Mapping[str, LineValue], recovery: Mapping[str, float], *,
         return None
     idx, y, s = _observed(values, recovery)
     names = [FIT_LINES[k] for k in idx]
-    if (len(idx) < MIN_LINES or sum(n.startswith("HeI") and not n.startswith("HeII")
-                                    for n in names) < 2
-            or not any(n.startswith("HI") for n in names)):
+    if not enough_lines(names):
         return None
     interp, axes = _interpolator(path)
     t_prior = teff0 / 1000.0

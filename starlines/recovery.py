@@ -38,13 +38,19 @@ REFERENCE_HE = 0.1
 #: Wavelength range (A) synthesized for the forward model: the He I lines used for helium
 #: plus ~50 A of continuum on each side for the continuum fit.
 RECOVERY_RANGE = (3950.0, 4980.0)
-#: Rounding of the cache keys: Teff (K), log g (dex), resolution FWHM (A), v sin i (km/s).
-_ROUND = (500.0, 0.25, 0.25, 25.0)
-#: S/N per pixel of the forward model: the star's S/N rounded to 1/8 dex, within these
-#: limits (beyond 1000 the bias no longer changes; below 30 no line is used anyway).
+#: Rounding of the cache keys: Teff (K), log g (dex), log10 resolution FWHM, v sin i
+#: (km/s), log10 S/N. Measured at 25 kK, log g 4, 2.5 A, S/N 200 (He I 4471/4026/4388/
+#: 4922/4713, H-gamma, H-delta): the factors change by < 0.5 % per 1000 K, ~2 % per 0.25
+#: dex in log g, ~1-2 % per 0.25 A of FWHM, ~1-3 % per 50 km/s and ~1-2 % per 0.25 dex of
+#: S/N, so these steps keep the rounding error at the ~1-2 % level, under the fit's model
+#: error (:data:`starlines.ewfit.MODEL_ERROR`, 5 %), with few distinct forward models.
+_ROUND = (2000.0, 0.25, 0.04, 50.0, 0.25)
+#: S/N per pixel of the forward model: the star's S/N, rounded, within these limits
+#: (beyond 1000 the bias no longer changes; below 30 no line is used anyway).
 _SNR_LIMITS = (30.0, 1000.0)
-#: Noise realizations averaged per forward model (seeds 0..N-1: deterministic).
-N_REALIZATIONS = 4
+#: Noise realizations averaged per forward model (seeds 0..N-1: deterministic); the
+#: factors of one realization scatter by ~1-2 % at S/N 250.
+N_REALIZATIONS = 2
 #: Factors outside this range mean the forward model failed to measure the line (for
 #: example a line too weak at this Teff); they are not returned.
 _FACTOR_LIMITS = (0.3, 1.5)
@@ -84,12 +90,13 @@ def recovery_factors(lines: Sequence[str], *, teff: float, logg: float,
         return {}
     step = pixel_step if pixel_step and math.isfinite(pixel_step) and pixel_step > 0 \
         else resolution_fwhm / 2.5
-    step = min(step, resolution_fwhm / 2.0)  # keep the model at least Nyquist-sampled
+    # the model is kept at least Nyquist-sampled (step <= FWHM / 2)
     vs = vsini if math.isfinite(vsini) and vsini > 0 else 0.0
     snr = float(np.clip(snr if math.isfinite(snr) else _SNR_LIMITS[1], *_SNR_LIMITS))
-    key = (_rounded(teff, _ROUND[0]), _rounded(logg, _ROUND[1]),
-           max(_rounded(resolution_fwhm, _ROUND[2]), _ROUND[2]), _rounded(vs, _ROUND[3]),
-           float(f"{step:.2g}"), round(10 ** _rounded(math.log10(snr), 0.125), 1))
+    fwhm = round(10 ** _rounded(math.log10(resolution_fwhm), _ROUND[2]), 3)
+    key = (_rounded(teff, _ROUND[0]), _rounded(logg, _ROUND[1]), fwhm,
+           _rounded(vs, _ROUND[3]), float(f"{min(step, fwhm / 2.0):.2g}"),
+           round(10 ** _rounded(math.log10(snr), _ROUND[4]), 1))
     table = _factors(*key)
     return {ident: table[ident] for ident in lines if ident in table}
 
