@@ -13,7 +13,7 @@ at S/N 1000, 0.83 at S/N 250), so the forward model is made at the star's S/N.
 
 :func:`recovery_factors` removes that bias without a tuned constant: it synthesizes the
 spectrum of a star of normal helium abundance at the observed star's Teff, log g,
-resolution, sampling, rotation and S/N (a few noise realizations, fixed seeds, averaged),
+resolution, sampling, rotation and S/N (noise with a fixed seed),
 measures it with the same measurement stage, and
 returns measured / true EW for each requested line. A measured EW divided by its factor
 is on the grid's scale. Results are cached on rounded parameters (the factors change
@@ -41,16 +41,17 @@ RECOVERY_RANGE = (3950.0, 4980.0)
 #: Rounding of the cache keys: Teff (K), log g (dex), log10 resolution FWHM, v sin i
 #: (km/s), log10 S/N. Measured at 25 kK, log g 4, 2.5 A, S/N 200 (He I 4471/4026/4388/
 #: 4922/4713, H-gamma, H-delta): the factors change by < 0.5 % per 1000 K, ~2 % per 0.25
-#: dex in log g, ~1-2 % per 0.25 A of FWHM, ~1-3 % per 50 km/s and ~1-2 % per 0.25 dex of
-#: S/N, so these steps keep the rounding error at the ~1-2 % level, under the fit's model
-#: error (:data:`starlines.ewfit.MODEL_ERROR`, 5 %), with few distinct forward models.
-_ROUND = (2000.0, 0.25, 0.04, 50.0, 0.25)
+#: dex in log g, ~1-2 % per 10 % of FWHM, ~1-3 % per 50 km/s and ~1-2 % per 0.25 dex of
+#: S/N. These steps keep the rounding error at ~2-3 %, under the fit's model error
+#: (:data:`starlines.ewfit.MODEL_ERROR`, 5 %), with few distinct forward models (each
+#: costs ~60 ms): a night from one instrument needs a few tens.
+_ROUND = (4000.0, 0.5, 0.1, 100.0, 0.5)
 #: S/N per pixel of the forward model: the star's S/N, rounded, within these limits
 #: (beyond 1000 the bias no longer changes; below 30 no line is used anyway).
 _SNR_LIMITS = (30.0, 1000.0)
 #: Noise realizations averaged per forward model (seeds 0..N-1: deterministic); the
-#: factors of one realization scatter by ~1-2 % at S/N 250.
-N_REALIZATIONS = 2
+#: factors of one realization scatter by ~1-2 % at S/N 250 (under the model error).
+N_REALIZATIONS = 1
 #: Factors outside this range mean the forward model failed to measure the line (for
 #: example a line too weak at this Teff); they are not returned.
 _FACTOR_LIMITS = (0.3, 1.5)
