@@ -157,6 +157,15 @@ def test_si4_luminosity_thresholds(log_w2, expected):
     assert res.lumclass == expected
 
 
+@pytest.mark.parametrize("subtype, applies", [
+    # criteria.md 3a (Walborn, abstract): the Si IV luminosity effect is stated for O9-B0;
+    # the rule starts at O7 (log W' >= -0.10, criteria.md 3b) and stops at B0
+    (7.0, True), (9.5, True), (10.0, True), (10.5, False), (11.0, False),
+])
+def test_si4_luminosity_rule_range(subtype, applies):
+    assert SiIVLuminosityRule().applies(0.5, subtype) is applies
+
+
 def test_of_notation():
     # criteria.md 3a (Walborn): ((f)) strong 4686 abs + N III em; (f) weak 4686 + N III em;
     # f both in emission
