@@ -93,6 +93,17 @@ def _tables(items, cache: Path | None, fwhm: float | None = None):
     return store
 
 
+def _printed_subtype(sptype: str) -> float:
+    """Subtype number of the printed type (e.g. "B2.5 V" -> 12.5); NaN when none."""
+    from starlines.errors import ClassificationError
+    from starlines.sptype import parse_sptype
+
+    try:
+        return float(parse_sptype(sptype).subtype_range[0])
+    except (ClassificationError, ValueError):  # no type printed (wr-like, not-hot-star)
+        return math.nan
+
+
 def _criteria(notes: str) -> str:
     """The rule values and the luminosity source from a classification's notes."""
     keep = [n for n in notes.split("; ") if "=" in n or n.startswith("luminosity from")]
@@ -125,7 +136,7 @@ def run(library: str, mod, cache: Path | None, extra_lines: list[str],
         lum = lum.rstrip(":").rstrip("efp()").rstrip(":").split("(")[0]
         d = mod._delta(c.subtype, lib)
         ok = mod._lum_agrees(lum, lib)
-        row = dict(delta=d, lum_ok=ok)
+        row = dict(delta=d, lum_ok=ok, delta_printed=mod._delta(_printed_subtype(c.sptype), lib))
         rows.append(row)
         line = (f"{name:10s} {lib:10s} {c.sptype:14s} {c.rules_subtype:5.2f} "
                 f"{c.model_subtype:5.2f} {c.subtype:5.2f} {d:4.2f} {'ok ' if ok else 'NO '}")
@@ -137,6 +148,10 @@ def run(library: str, mod, cache: Path | None, extra_lines: list[str],
     print(f"{label}: n={s['n']} median |d| {s['median']:.2f}, within 1 "
           f"{100 * s['within_one']:.0f} %, within 1/2 {100 * s['within_half']:.0f} %, "
           f"lumclass {100 * s['lum']:.0f} %")
+    p = mod.summary([dict(delta=r["delta_printed"], lum_ok=r["lum_ok"]) for r in rows])
+    print(f"{label}, scored on the printed MK types (standard subtypes) instead: median |d| "
+          f"{p['median']:.2f}, within 1 {100 * p['within_one']:.0f} %, within 1/2 "
+          f"{100 * p['within_half']:.0f} %")
     return rows
 
 
