@@ -136,10 +136,22 @@ def _err2(v: LineValue) -> float:
     return v.err**2 if math.isfinite(v.err) else 0.0
 
 
+def _wind_filled(values: Mapping[str, LineValue]) -> bool:
+    """A Balmer line in net emission: the star's wind fills in its Balmer absorption."""
+    from starlines.lumrules import balmer_emission
+
+    return bool(balmer_emission(values))
+
+
 def feature_vector(values: Mapping[str, LineValue], features=FEATURES) -> np.ndarray:
     """Features of one spectrum; lines missing, unusable or in emission give NaN.
 
     A ratio whose lines are both undetected is NaN too (see :func:`feature_limits`).
+    When any Balmer line is in net emission (H-alpha in a B supergiant, an Oe or Of star),
+    every feature that uses a Balmer line is NaN as well: the grid has no wind (grids/
+    README.md, "Limits"), and wind emission filling in H-gamma and H-delta made the model
+    read such stars as hotter (MILES v9.1 B1.5-B3 Iae stars: H-gamma 1.1-1.7 A where the
+    grid's log g 2.5 models at 18-19 kK have 2.4-2.7 A; model subtypes 1-2 too early).
     """
     ok = {k: v for k, v in values.items() if v.usable and not v.in_emission}
     ew = {k: np.array([v.ew]) for k, v in ok.items()}
@@ -148,6 +160,9 @@ def feature_vector(values: Mapping[str, LineValue], features=FEATURES) -> np.nda
         return np.full(len(features), np.nan)
     x = feature_matrix(ew, err, features)[0]
     x[np.isnan(feature_limits(values, features))] = np.nan
+    if _wind_filled(values):
+        x[[any(i.startswith("HI") for i in f.numerator + f.denominator)
+           for f in features]] = np.nan
     return x
 
 

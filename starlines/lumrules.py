@@ -93,15 +93,18 @@ class SiIVLuminosityRule:
 
     Conti & Alschuler (1971), thresholds transcribed (criteria.md section 3b): log W''
     -0.20 .. 0.10 class V, 0.10 .. 0.30 class III, > 0.30 class I. Below -0.20 (outside the
-    table) class V, marked uncertain. Needs Si IV 4089, so it stops near B0.5 where that
-    line fades (criteria.md section 2, [memory]).
+    table) class V, marked uncertain. Applied from O7 to B0: the Si IV luminosity effect
+    is stated for O9-B0 (Walborn, IAU Symp. paper, abstract; criteria.md section 3a) and
+    the thresholds come from O stars. At B0.5 He I 4144 has strengthened while Si IV 4089
+    is still strong in supergiants (MILES HD 185859, B0.5 Iae: log W'' = 0.07, class V by
+    these thresholds), so later types take the class from the model instead.
     """
 
     name: str = "SiIV4089/HeI4144"
     min_log_wprime: float = -0.10
     edges: tuple[float, float] = (0.10, 0.30)
     lowest: float = -0.20
-    valid_range: tuple[float, float] = (7.0, 10.5)
+    valid_range: tuple[float, float] = (7.0, 10.0)
     reference: str = "Conti & Alschuler (1971) [transcribed]"
 
     def applies(self, log_wprime: float, subtype: float) -> bool:

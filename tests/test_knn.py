@@ -137,3 +137,21 @@ def test_censored_features():
     est.scale_ = np.array([1.0])
     dist, idx = est.kneighbors(np.array([[1.5]]), np.array([[1.0]]))
     assert list(idx[0]) == [0, 1] and dist[0] == pytest.approx([0.0, 0.5])
+
+
+def test_balmer_emission_drops_balmer_features():
+    # The grid has no wind (grids/README.md "Limits"): with H-alpha in net emission the
+    # Balmer-line features carry no temperature information for the model and are NaN;
+    # the other features are unchanged (injected EWs; the feature definitions are the
+    # reference).
+    ews = {"HeI4471": 0.8, "HeII4541": 0.0, "SiIII4553": 0.4, "SiIV4089": 0.05,
+           "HI4340": 1.5, "HI4102": 1.8}
+    vals = {k: LineValue(v, 0.01) for k, v in ews.items()}
+    balmer = [any(i.startswith("HI") for i in f.numerator + f.denominator) for f in FEATURES]
+    quiet = feature_vector(vals)
+    assert np.isfinite(quiet[balmer]).any()
+    vals["HI6563"] = LineValue(-2.0, 0.05, "measured", True)
+    windy = feature_vector(vals)
+    assert np.isnan(windy[balmer]).all()
+    other = ~np.array(balmer)
+    np.testing.assert_array_equal(windy[other], quiet[other])

@@ -22,7 +22,15 @@ from starlines.lumrules import (
     wr_like,
 )
 from starlines.rulecal import calibrate_rule
-from starlines.rules import PRIMARY, SECONDARY, LineValue, line_values, log_ratio
+from starlines.rules import (
+    PRIMARY,
+    SECONDARY,
+    SIIV_DOUBLET_RATIO,
+    LineValue,
+    line_values,
+    log_ratio,
+    remove_oii_4089,
+)
 
 # Conti & Alschuler (1971) / Mathys (1988) log W' bins, criteria.md section 1 (transcribed)
 PUBLISHED_LOG_WPRIME = [
@@ -101,6 +109,30 @@ def test_line_values_reads_quantity_table():
     assert vals["HeII4541"].err == pytest.approx(0.01)
 
 
+@pytest.mark.parametrize("ew4089, ew4116, expected", [
+    # Si IV 4089 : 4116 is at most 2 : 1, the doublet's gf ratio (LS coupling, common
+    # practice): an excess over twice 4116 is O II 4089 and is removed
+    (0.25, 0.01, 0.02),   # supergiant-like: 4089 mostly O II (MILES HD 41117-like numbers)
+    (0.25, -0.05, 0.0),   # 4116 absent: no Si IV left
+    (0.34, 0.24, 0.34),   # O9-like Si IV doublet (ratio 1.4): unchanged
+    (0.10, 0.05, 0.10),   # exactly at the bound: unchanged
+])
+def test_remove_oii_4089_bounds_siiv_by_4116(ew4089, ew4116, expected):
+    vals = {"SiIV4089": LineValue(ew4089, 0.02), "SiIV4116": LineValue(ew4116, 0.01)}
+    out = remove_oii_4089(vals)
+    assert out["SiIV4089"].ew == pytest.approx(expected, abs=1e-12)
+    if expected < ew4089:
+        assert out["SiIV4089"].err == pytest.approx(SIIV_DOUBLET_RATIO * 0.01)
+    assert vals["SiIV4089"].ew == ew4089  # the input mapping is not modified
+
+
+def test_remove_oii_4089_needs_a_usable_4116():
+    vals = {"SiIV4089": LineValue(0.25, 0.02),
+            "SiIV4116": LineValue(float("nan"), float("nan"), "blended")}
+    assert remove_oii_4089(vals)["SiIV4089"].ew == 0.25
+    assert remove_oii_4089({"SiIV4089": LineValue(0.25, 0.02)})["SiIV4089"].ew == 0.25
+
+
 @pytest.mark.parametrize("ew, expected", [
     # criteria.md 3b: log EW(4686) > -0.25 -> V; net emission -> I; otherwise III
     (0.80, "V"), (0.40, "III"), (0.0, "III"), (-0.50, "I"),
@@ -123,6 +155,15 @@ def test_si4_luminosity_thresholds(log_w2, expected):
     res = rule.evaluate(vals)
     assert res.value == pytest.approx(log_w2, abs=1e-9)
     assert res.lumclass == expected
+
+
+@pytest.mark.parametrize("subtype, applies", [
+    # criteria.md 3a (Walborn, abstract): the Si IV luminosity effect is stated for O9-B0;
+    # the rule starts at O7 (log W' >= -0.10, criteria.md 3b) and stops at B0
+    (7.0, True), (9.5, True), (10.0, True), (10.5, False), (11.0, False),
+])
+def test_si4_luminosity_rule_range(subtype, applies):
+    assert SiIVLuminosityRule().applies(0.5, subtype) is applies
 
 
 def test_of_notation():
