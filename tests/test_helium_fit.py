@@ -104,3 +104,26 @@ def test_helium_flag_prefers_the_profile_significance():
     assert fl.helium_flag(0.02, 0.01, -4.0) == "helium-weak"
     assert fl.helium_flag(0.25, 0.02, math.nan) == "helium-strong"  # fallback: 7.5 sigma
     assert fl.helium_flag(0.25, 0.10, math.nan) is None             # fallback: 1.5 sigma
+
+
+@pytest.mark.parametrize("lumnumber, expected", [(5.0, "V"), (3.0, "III")])
+def test_classify_takes_gravity_and_luminosity_from_the_ew_fit(lumnumber, expected):
+    # B1 star on the V and III tracks of starlines.teffscale (Pecaut & Mamajek 2013 Table 5;
+    # Zorec et al. 2009 Table 6; log g 4.0 / 3.5 from memory): the EW fit's log g within
+    # 0.2 dex of the input and the class read from it
+    from starlines.classify import classify
+    from starlines.teffscale import type_parameters
+
+    teff, logg = type_parameters(11.0, lumnumber)
+    wave = np.arange(3900.0, 5000.0, STEP)
+    flux = synthetic_spectrum(wave, teff=teff, logg=logg, he=0.1, vsini=60.0,
+                              resolution_fwhm=FWHM)
+    flux = flux + np.random.default_rng(3).normal(0.0, 1.0 / SNR, wave.size)
+    spec = Spectrum(wavelength=wave, flux=flux, uncertainty=np.full(wave.size, 1.0 / SNR),
+                    medium="air", path="synthetic B1")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        c = classify(measure_spectrum(spec))
+    assert c.logg == pytest.approx(logg, abs=0.2)
+    assert c.lumclass.rstrip(":") == expected
+    assert "EW fit" in c.notes
