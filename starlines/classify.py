@@ -25,7 +25,15 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from starlines.errors import ClassificationError
-from starlines.flags import HE_NORMAL, HE_TOLERANCE, LOW_SNR, SUBTYPE_TOLERANCE, helium_flag
+from starlines.flags import (
+    HE_NORMAL,
+    HE_TOLERANCE,
+    LOW_SNR,
+    MIN_TYPING_SNR,
+    SUBTYPE_TOLERANCE,
+    TYPING_REGION,
+    helium_flag,
+)
 from starlines.lumrules import (
     LUMINOSITY_RULES,
     balmer_emission,
@@ -202,9 +210,16 @@ def classify(measurement_or_line_table, *, model=None, secondary_rules=None) -> 
     values = line_values(table)
     out = Classification()
     notes: list[str] = []
-    snr = table.meta.get("snr") if hasattr(table, "meta") else None
-    if snr is not None and math.isfinite(float(snr)) and float(snr) < LOW_SNR:
+    meta = getattr(table, "meta", {}) or {}
+    snr = min((x for x in (as_float(meta.get("snr")), as_float(meta.get("snr_typing_region")))
+               if x is not None), default=None)
+    if snr is not None and snr < LOW_SNR:
         out.flags.append("low-snr")
+    region = as_float(meta.get("snr_typing_region"))
+    if region is not None and region < MIN_TYPING_SNR:
+        out.notes = (f"S/N {region:.0f} per pixel in {TYPING_REGION[0]:.0f}-"
+                     f"{TYPING_REGION[1]:.0f} A, below {MIN_TYPING_SNR:g}: no type")
+        return out
     if wr_like(values):
         out.flags.append("wr-like")
         out.notes = "emission-dominated spectrum (Wolf-Rayet-like): no MK type forced"

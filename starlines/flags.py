@@ -33,10 +33,13 @@ from starlines.nightflags import (
 from starlines.numeric import is_finite as _finite
 from starlines.quality import (
     MIN_BALMER_EW,
+    MIN_TYPING_SNR,
     SCATTER_EXCESS,
+    TYPING_REGION,
     effective_snr,
     inverted_emission,
     suspect_reasons,
+    too_noisy_to_type,
 )
 
 __all__ = [
@@ -50,6 +53,9 @@ __all__ = [
     "join_flags",
     "split_flags",
     "LOW_SNR",
+    "MIN_TYPING_SNR",
+    "too_noisy_to_type",
+    "TYPING_REGION",
     "FAST_ROTATOR_VSINI",
     "BROAD_EMISSION_FWHM",
     "BROAD_EMISSION_EW",
@@ -172,7 +178,9 @@ FLAGS: tuple[Flag, ...] = (
          "the archive's variability test rejects a constant velocity", 4.0, "night"),
     Flag("low-snr", f"S/N per pixel below {LOW_SNR:g}",
          f"min(DER_SNR, 1 / continuum scatter) < {LOW_SNR:g}: weak-line ratios and types "
-         "are unreliable", 0.0),
+         f"are unreliable; below {MIN_TYPING_SNR:g} in {TYPING_REGION[0]:.0f}-"
+         f"{TYPING_REGION[1]:.0f} A (errors inflated by the line fits' chi-square) no type "
+         "is given", 0.0),
     Flag("suspect-data", "the data look bad although the S/N passes: check the spectrum",
          "a hot star with H-delta, H-gamma or H-beta not detected, weaker than "
          f"{MIN_BALMER_EW:g} A, with an EW error larger than the EW, or in emission while a "
@@ -333,6 +341,8 @@ def spectrum_flags(
     he_seen = any(
         _detected(ln, emission=False) for ln in lines if ln.get("kind") in ("hei", "heii")
     )
-    if not he_seen or not _finite(row.get("subtype")):
+    if too_noisy_to_type(row):
+        out.add("low-snr")  # not typed for noise: says nothing about the star
+    elif not he_seen or not _finite(row.get("subtype")):
         out.add("not-hot-star")
     return split_flags(join_flags(out))

@@ -172,7 +172,8 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
     meta = table.meta
     update_row(row, {k: meta.get(k) for k in ("snr", "vsini", "vsini_err", "vsini_floor",
                                                "continuum_scatter", "resolution_fwhm",
-                                               "resolution_source") if k in meta})
+                                               "resolution_source", "snr_typing_region")
+                     if k in meta})
     good = spec.wavelength[spec.good]
     row["pixel_step"] = float(np.median(np.diff(good))) if good.size > 1 else math.nan
     row["vsini_limit"] = bool(meta.get("vsini_upper_limit", False))

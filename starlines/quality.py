@@ -46,6 +46,9 @@ __all__ = [
     "continuum_snr",
     "effective_snr",
     "suspect_reasons",
+    "too_noisy_to_type",
+    "MIN_TYPING_SNR",
+    "TYPING_REGION",
     "noise_note",
     "der_snr_bias",
     "NOT_DETECTED_EW",
@@ -79,6 +82,16 @@ _BALMER_SERIES = ("HI3835", "HI3889", "HI3970", "HI4102", "HI4340", "HI4861", "H
 _BALMER_NAMES = dict(zip(_BALMER_SERIES, ("H9", "H8", "H-epsilon", "H-delta", "H-gamma",
                                           "H-beta", "H-alpha")))
 _EMISSION_LINES = ("HeII4686", "NIII4634", "NIII4641", "NIII4642", "HI6563")
+
+
+#: S/N per pixel in the classification region (:data:`TYPING_REGION`, the smaller of the
+#: error-array/DER_SNR value and 1 / continuum scatter there) below which no type is
+#: given: sigma(EW) ~ 1.6 A / (S/N) = 0.16 A at S/N 10, as large as the weak lines the
+#: type ratios need (He II 4541, Si III 4553 ~0.1-0.3 A), so every ratio is a 1-sigma guess.
+MIN_TYPING_SNR = 10.0
+#: Wavelength range (A) of the classification lines (He I 4026-4471, He II 4200/4541,
+#: Si III/IV, Mg II), where the S/N for :data:`MIN_TYPING_SNR` is measured.
+TYPING_REGION = (4000.0, 4700.0)
 
 
 def _num(x) -> float:
@@ -189,6 +202,12 @@ def _balmer_reasons(lines: Sequence[Mapping], sigma: float) -> list[str]:
     return out
 
 
+def too_noisy_to_type(row: Mapping) -> bool:
+    """The classification region's S/N is below :data:`MIN_TYPING_SNR` (no type given)."""
+    region = row.get("snr_typing_region")
+    return math.isfinite(_num(region)) and _num(region) < MIN_TYPING_SNR
+
+
 def suspect_reasons(row: Mapping, lines: Sequence[Mapping], sigma: float = 3.0) -> list[str]:
     """Why a hot-star spectrum's data look bad; empty when they look fine.
 
@@ -210,7 +229,7 @@ def suspect_reasons(row: Mapping, lines: Sequence[Mapping], sigma: float = 3.0) 
     if row.get("status") == "failed":
         return []
     out = []
-    if math.isfinite(_num(row.get("subtype"))):
+    if math.isfinite(_num(row.get("subtype"))) or too_noisy_to_type(row):
         out += _balmer_reasons(lines, sigma)
     snr, cs = _num(row.get("snr")), continuum_snr(row)
     bound = _scatter_bound(row)

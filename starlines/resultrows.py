@@ -28,7 +28,8 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "he_abundance_err", "helium_sigma", "rules_subtype", "model_subtype", "probability",
     "followup_reason",
     "catalogue_type", "catalogue_subtype", "catalogue_rv", "class_notes", "notes", "figure",
-    "vsini_limit", "vsini_floor", "continuum_scatter", "snr_continuum", "n_orders",
+    "vsini_limit", "vsini_floor", "continuum_scatter", "snr_continuum", "snr_typing_region",
+    "n_orders",
     "resolution_fwhm", "resolution_source", "pixel_step",
 )
 
@@ -47,7 +48,8 @@ _FLOAT_COLUMNS = {
     "rv", "rv_err",
     "rv_ccf", "rv_ccf_err", "barycentric_correction", "rv2", "followup_score",
     "rules_subtype", "model_subtype", "probability", "catalogue_subtype", "catalogue_rv",
-    "vsini_floor", "continuum_scatter", "snr_continuum", "resolution_fwhm", "pixel_step",
+    "vsini_floor", "continuum_scatter", "snr_continuum", "snr_typing_region",
+    "resolution_fwhm", "pixel_step",
 }
 _INT_COLUMNS = {"rv_n_lines", "followup_rank", "n_orders"}
 _BOOL_COLUMNS = {"medium_assumed", "vsini_limit"}

@@ -328,6 +328,10 @@ def test_bad_library_spectrum_is_suspect_data():
     assert row["snr"] > 50.0  # DER_SNR passes the cut ...
     assert 18.0 <= row["snr_continuum"] <= 45.0  # ... the continuum scatter does not
     assert "balmer-emission" not in flags  # H8 "emission" with H-beta in absorption
+    # too noisy in 4000-4700 A to be typed (starlines.quality.MIN_TYPING_SNR): no type,
+    # and no claim that it is not a hot star
+    assert row["sptype"] == "" and "not-hot-star" not in flags
+    assert row["snr_typing_region"] < 10.0
     # a good MILES B2 IV (HD 886, S/N ~220 in the README) is not suspect
     (good,) = analyse_file(_reference("MILES_res2.50_star_m0011V.fits")).rows
     assert "suspect-data" not in good["flags"] and "low-snr" not in good["flags"]
