@@ -83,8 +83,9 @@ __all__ = [
 LOW_SNR = 50.0
 
 #: v sin i (km/s) above which a star is a ``fast-rotator``; only a *measured* value counts:
-#: below the resolution floor c FWHM / lambda (168 km/s at 2.5 A and 4471 A) the measure
-#: stage gives an upper limit (``vsini_limit``), which never raises the flag, and the
+#: below the resolution floor c FWHM / lambda of the line used (165-168 km/s at 2.5 A for
+#: Si III 4553 or He I 4471; measure stage: narrow metal and He I lines first) it gives an
+#: upper limit (``vsini_limit``), which never raises the flag, and the
 #: composite profile of a double-lined binary is not a rotation profile. OB dwarfs and
 #: giants range from < 30 to ~450 km/s and most O stars rotate slower than ~150 km/s
 #: (criteria.md 6b, Simon-Diaz & Herrero 2007 abstract; [memory] for the 150); above
