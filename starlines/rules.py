@@ -134,8 +134,11 @@ def remove_oii_4089(values: dict[str, LineValue]) -> dict[str, LineValue]:
     4116 (blended with He I 4121 at low resolution) 4089 is left as measured.
     """
     a, b = values.get("SiIV4089"), values.get("SiIV4116")
-    if a is None or b is None or not (a.usable and b.usable) or a.emission or b.emission:
+    if (a is None or b is None or not (a.usable and b.usable) or b.status == "blended"
+            or a.emission or b.emission):
         return values
+    # clipping to the physical bound (constrained estimate); the bound keeps 4116's
+    # scaled error, so an undetected 4116 leaves 4089 undetected, with that upper limit
     bound = SIIV_DOUBLET_RATIO * max(b.ew, 0.0)
     if a.ew <= bound:
         return values

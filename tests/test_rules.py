@@ -113,7 +113,7 @@ def test_line_values_reads_quantity_table():
     # Si IV 4089 : 4116 is at most 2 : 1, the doublet's gf ratio (LS coupling, common
     # practice): an excess over twice 4116 is O II 4089 and is removed
     (0.25, 0.01, 0.02),   # supergiant-like: 4089 mostly O II (MILES HD 41117-like numbers)
-    (0.25, -0.05, 0.0),   # 4116 absent: no Si IV left
+    (0.25, -0.05, 0.0),   # 4116 undetected: 4089 replaced by 0 +- 0.02 (undetected)
     (0.34, 0.24, 0.34),   # O9-like Si IV doublet (ratio 1.4): unchanged
     (0.10, 0.05, 0.10),   # exactly at the bound: unchanged
 ])
@@ -130,6 +130,8 @@ def test_remove_oii_4089_needs_a_usable_4116():
     vals = {"SiIV4089": LineValue(0.25, 0.02),
             "SiIV4116": LineValue(float("nan"), float("nan"), "blended")}
     assert remove_oii_4089(vals)["SiIV4089"].ew == 0.25
+    blended = {"SiIV4089": LineValue(0.25, 0.02), "SiIV4116": LineValue(0.05, 0.01, "blended")}
+    assert remove_oii_4089(blended)["SiIV4089"].ew == 0.25
     assert remove_oii_4089({"SiIV4089": LineValue(0.25, 0.02)})["SiIV4089"].ew == 0.25
 
 
