@@ -4,17 +4,22 @@
 (columns ``line, ew, ew_err, status, emission``; EWs in Angstrom, absorption positive) and
 returns a :class:`Classification`:
 
-1. Emission-dominated (Wolf-Rayet-like) spectra get the ``wr-like`` flag and no type.
+1. Emission-dominated (Wolf-Rayet-like) spectra get the ``wr-like`` flag and no type;
+   so do spectra too noisy in the classification region (``low-snr``,
+   :data:`starlines.quality.MIN_TYPING_SNR`).
 2. Rules (:mod:`starlines.rules`): log W' for O3-O9.7, secondary ratios calibrated on the
    grid for late O and early B, He II presence/absence as limits.
 3. Model (:mod:`starlines.knn`): subtype, Teff, log g, He/H from the nearest grid models.
 4. Combination: inverse-variance mean; if rules and model differ by more than
    ``starlines.flags.SUBTYPE_TOLERANCE`` the ``type-disagreement`` flag is set and the
    type gets the MK uncertainty mark ":" instead of a silent choice.
-5. Luminosity class from He II 4686 or Si IV 4089/He I 4144 (:mod:`starlines.lumrules`),
-   else from the model's log g; Of qualifiers from He II 4686 and N III; "e" for Balmer
-   emission; helium-strong/weak from the model's He/H; a direct He/H from the He I EWs
-   against the grid at the fitted Teff/log g (:mod:`starlines.helium`) goes to the notes.
+5. Gravity and helium: Teff, log g and He/H fitted together to the measured H, He I and
+   He II EWs (:mod:`starlines.ewfit`, EWs corrected by :mod:`starlines.recovery`) give
+   ``logg`` and ``he_abundance`` and the significance of a helium anomaly
+   (``helium_sigma``) when the resolution allows; else the model's values stay.
+6. Luminosity class from He II 4686 or Si IV 4089/He I 4144 (:mod:`starlines.lumrules`),
+   else from the fitted (or the model's) log g; Of qualifiers from He II 4686 and N III;
+   "e" for Balmer emission; helium-strong/weak by :func:`starlines.flags.helium_flag`.
 """
 
 from __future__ import annotations
@@ -24,7 +29,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from starlines.errors import ClassificationError
+from starlines.errors import ClassificationError, StarlinesError
 from starlines.flags import (
     HE_NORMAL,
     HE_TOLERANCE,
@@ -33,6 +38,7 @@ from starlines.flags import (
     SUBTYPE_TOLERANCE,
     TYPING_REGION,
     helium_flag,
+    too_noisy_to_type,
 )
 from starlines.lumrules import (
     LUMINOSITY_RULES,
@@ -211,18 +217,19 @@ def classify(measurement_or_line_table, *, model=None, secondary_rules=None) -> 
     out = Classification()
     notes: list[str] = []
     meta = getattr(table, "meta", {}) or {}
-    snr = min((x for x in (as_float(meta.get("snr")), as_float(meta.get("snr_typing_region")))
-               if x is not None), default=None)
+    snr = as_float(meta.get("snr"))
     if snr is not None and snr < LOW_SNR:
         out.flags.append("low-snr")
-    region = as_float(meta.get("snr_typing_region"))
-    if region is not None and region < MIN_TYPING_SNR:
-        out.notes = (f"S/N {region:.0f} per pixel in {TYPING_REGION[0]:.0f}-"
-                     f"{TYPING_REGION[1]:.0f} A, below {MIN_TYPING_SNR:g}: no type")
-        return out
     if wr_like(values):
         out.flags.append("wr-like")
         out.notes = "emission-dominated spectrum (Wolf-Rayet-like): no MK type forced"
+        return out
+    if too_noisy_to_type(meta):
+        if "low-snr" not in out.flags:
+            out.flags.append("low-snr")
+        out.notes = (f"S/N {float(meta['snr_typing_region']):.0f} per pixel in "
+                     f"{TYPING_REGION[0]:.0f}-{TYPING_REGION[1]:.0f} A, below "
+                     f"{MIN_TYPING_SNR:g}: no type")
         return out
     r_sub, r_err, used = rules_subtype(values, secondary_rules)
     out.rules_subtype = r_sub
@@ -242,10 +249,10 @@ def classify(measurement_or_line_table, *, model=None, secondary_rules=None) -> 
         out.teff, out.teff_err = est["teff"]
         out.logg, out.logg_err = est["logg"]
         out.he_abundance, out.he_abundance_err = est["he"]
-        fit, rec = _ew_fit(values, out, measurement_or_line_table, table)
-        _adopt_ew_fit(values, out, notes, fit, rec)
-        if fit is not None:
-            m_lum = float(subtype_for_parameters(fit.teff, fit.logg)[1])
+        fit, why = _ew_fit(values, out, table)
+        _adopt_ew_fit(values, out, notes, fit, why)
+        if fit is not None:  # the row's Teff is the model's: read the class with it
+            m_lum = float(subtype_for_parameters(out.teff, fit.logg)[1])
             lum_from = "EW-fit log g"
     sub, err, uncertain = _final_subtype(r_sub, r_err, m_sub, m_err, out.flags)
     if not math.isfinite(sub):
@@ -300,41 +307,59 @@ def _qualifiers(values, subtype: float, flags: list[str]) -> str:
     return qual
 
 
-def _ew_fit(values, out: Classification, source, table):
+def _ew_fit(values, out: Classification, table):
     """Joint Teff, log g, He/H fit to the EWs (:mod:`starlines.ewfit`), or None.
 
-    Needs the observing conditions in the line table's meta (resolution, S/N), a
-    resolution that is known (from the header or the lines, not assumed) and no coarser
-    than :data:`starlines.ewfit.MAX_RESOLUTION_FWHM`, and enough lines
+    Needs the observing conditions in the line table's meta (resolution, S/N, pixel step),
+    a resolution from a trusted source (:data:`starlines.ewfit.RESOLUTION_SOURCES`) no
+    coarser than :data:`starlines.ewfit.MAX_RESOLUTION_FWHM`, no Balmer emission (the grid
+    has no wind: filled-in Balmer lines would read as low gravity) and enough lines
     (:func:`starlines.ewfit.enough_lines`). Measured EWs are divided by the recovery
     factors of :mod:`starlines.recovery`; the model's Teff is the prior.
 
     Returns
     -------
-    (EwFit or None, recovery factors or None)
+    (EwFit or None, note)
+        The note says why there is no fit ("" when there is one).
     """
-    from starlines.ewfit import FIT_LINES, MAX_RESOLUTION_FWHM, enough_lines, fit_ews
+    from starlines.ewfit import (
+        FIT_LINES,
+        MAX_RESOLUTION_FWHM,
+        RESOLUTION_SOURCES,
+        enough_lines,
+        fit_ews,
+    )
     from starlines.recovery import recovery_factors
 
-    meta = getattr(table, "meta", {}) or {}
-    fwhm, snr = as_float(meta.get("resolution_fwhm")), as_float(meta.get("snr"))
-    vsini = as_float(meta.get("vsini"))
+    fwhm, snr = as_float(meta_of(table, "resolution_fwhm")), as_float(meta_of(table, "snr"))
+    vsini = as_float(meta_of(table, "vsini"))
     detected = [k for k in FIT_LINES if k in values and values[k].detected]
-    if fwhm is None or snr is None or not enough_lines(detected):
-        return None, None
-    rec = recovery_factors(FIT_LINES, teff=out.teff, logg=out.logg, resolution_fwhm=fwhm,
-                           pixel_step=_pixel_step(source), snr=snr,
-                           vsini=0.0 if vsini is None or meta.get("vsini_upper_limit")
-                           else vsini)
-    known = not str(meta.get("resolution_source", "")).startswith("assumed")
-    if fwhm > MAX_RESOLUTION_FWHM or not known:
-        return None, rec
-    fit = fit_ews(values, rec, teff0=out.teff, teff0_err=out.teff_err, logg0=out.logg,
-                  normal=(HE_NORMAL - HE_TOLERANCE, HE_NORMAL + HE_TOLERANCE))
-    return fit, rec
+    if fwhm is None or snr is None or meta_of(table, "resolution_source") not in \
+            RESOLUTION_SOURCES or fwhm > MAX_RESOLUTION_FWHM:
+        return None, "resolution unknown or coarser than 6 A"
+    if balmer_emission(values):
+        return None, "Balmer emission"
+    if not enough_lines(detected):
+        return None, "too few lines"
+    try:
+        rec = recovery_factors(
+            FIT_LINES, teff=out.teff, logg=out.logg, resolution_fwhm=fwhm, snr=snr,
+            pixel_step=as_float(meta_of(table, "pixel_step")),
+            vsini=0.0 if vsini is None or meta_of(table, "vsini_upper_limit") else vsini,
+            wavelength_range=meta_of(table, "wavelength_range"))
+        fit = fit_ews(values, rec, teff0=out.teff, teff0_err=out.teff_err, logg0=out.logg,
+                      normal=(HE_NORMAL - HE_TOLERANCE, HE_NORMAL + HE_TOLERANCE))
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, StarlinesError) as exc:
+        return None, f"EW fit failed ({exc})"
+    return fit, "" if fit is not None else "EW fit failed"
 
 
-def _adopt_ew_fit(values, out: Classification, notes: list[str], fit, rec) -> None:
+def meta_of(table, key: str):
+    """``table.meta[key]`` or None."""
+    return (getattr(table, "meta", None) or {}).get(key)
+
+
+def _adopt_ew_fit(values, out: Classification, notes: list[str], fit, why: str) -> None:
     """He/H and log g from the EW fit when there is one; else keep the model's.
 
     The model reads He/H from line ratios, where helium is degenerate with temperature
@@ -342,7 +367,8 @@ def _adopt_ew_fit(values, out: Classification, notes: list[str], fit, rec) -> No
     see gravity; the fit adds the Balmer lines, which do (demo night: fitted log g within
     0.1 dex of the input, the model's 4.25 for most dwarfs of 4.0; MILES luminosity
     classes 68 % -> 79 % with the fit's log g). The model's values go to the notes.
-    Without a fit the direct He I estimate (:mod:`starlines.helium`) is only noted.
+    Without a fit the direct He I estimate (:mod:`starlines.helium`, not corrected for
+    the measurement) is only noted, with the reason.
     """
     from starlines.helium import helium_from_ews
 
@@ -356,21 +382,13 @@ def _adopt_ew_fit(values, out: Classification, notes: list[str], fit, rec) -> No
                                              HE_NORMAL + HE_TOLERANCE)
         return
     h = helium_from_ews(values, out.teff, out.logg, teff_err=out.teff_err,
-                        logg_err=out.logg_err, recovery=rec)
+                        logg_err=out.logg_err)
     if h is None:
-        notes.append("He/H from the model's line ratios")
+        notes.append(f"He/H from the model's line ratios (no EW fit: {why})")
         return
     notes.append(f"He/H {h.he:.3f} +- {h.err:.3f} from He I EWs ({len(h.lines)} lines"
                  + (", beyond the grid's He/H axis" if h.extrapolated else "")
-                 + "; flags use the model's He/H)")
-
-
-def _pixel_step(source) -> float | None:
-    spec = getattr(source, "spectrum", None)
-    w = getattr(spec, "wavelength", None)
-    if w is None or len(w) < 2:
-        return None
-    return float(np.median(np.diff(np.asarray(w, float))))
+                 + f", uncorrected; flags use the model's He/H; no EW fit: {why})")
 
 
 def _helium_flags(out: Classification) -> None:

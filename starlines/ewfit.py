@@ -37,7 +37,7 @@ import numpy as np
 from starlines.rules import LineValue
 
 __all__ = ["EwFit", "fit_ews", "enough_lines", "FIT_LINES", "MODEL_ERROR", "TEFF_PRIOR_FLOOR",
-           "MAX_RESOLUTION_FWHM"]
+           "MAX_RESOLUTION_FWHM", "RESOLUTION_SOURCES"]
 
 #: Lines fitted: Balmer lines free of strong blends at R ~ 2000 (H-epsilon sits on Ca II
 #: H and H-alpha is often absent or in emission), the He I lines of
@@ -63,12 +63,20 @@ MIN_LINES = 5
 #: et al. 1984 library, ~15 A FWHM: five of 15 O stars fitted at He/H 0.5-0.8, measured
 #: in this project); 6 A is the resolution the classification criteria are stated for.
 MAX_RESOLUTION_FWHM = 6.0
+#: Sources of the instrumental FWHM (line-table meta ``resolution_source``) trusted for
+#: the fit: the header, the caller, or the narrowest measured lines (an upper bound that
+#: includes some rotation). "assumed (2.5 pixels)" and a missing source are not trusted
+#: (Jacoby et al. 1984 spectra, really ~15 A, were assumed at 3.5 A).
+RESOLUTION_SOURCES = ("header", "argument", "estimated (narrowest lines)")
 #: He/H bounds of the fit (by number); the grid spans 0.06-0.25.
 HE_BOUNDS = (0.02, 1.0)
 
 
 #: Step (dex) and half-width (dex) of the He/H profile around the best fit.
-_PROFILE_STEP, _PROFILE_HALF_WIDTH = 0.025, 0.4
+_PROFILE_STEP, _PROFILE_HALF_WIDTH = 0.05, 0.4
+#: A profile direction stops once the scaled chi-square rise exceeds this (5 sigma): the
+#: significance reported is then at least 5.
+PROFILE_STOP = 25.0
 
 
 @dataclass(frozen=True)
@@ -148,8 +156,9 @@ def _observed(values: Mapping[str, LineValue], recovery: Mapping[str, float]):
     idx, y, s = [], [], []
     for k, ident in enumerate(FIT_LINES):
         v = values.get(ident)
-        if v is None or not v.detected or ident not in recovery:
-            continue
+        if (v is None or not v.detected or ident not in recovery
+                or not (math.isfinite(v.err) and v.err > 0)):
+            continue  # a line without a usable error cannot be weighted
         ew, err = v.ew / recovery[ident], v.err / recovery[ident]
         idx.append(k)
         y.append(math.log10(ew))
@@ -216,7 +225,8 @@ def fit_ews(values: Mapping[str, LineValue], recovery: Mapping[str, float], *,
     if not res.success:
         return None
     chi2 = float(np.sum(res.fun**2))
-    scale = max(chi2 / max(len(res.fun) - 3, 1), 1.0)
+    chi2_red = chi2 / max(len(res.fun) - 3, 1)
+    scale = max(chi2_red, 1.0)
     try:
         cov = np.linalg.inv(res.jac.T @ res.jac) * scale
     except np.linalg.LinAlgError:
@@ -227,11 +237,12 @@ def fit_ews(values: Mapping[str, LineValue], recovery: Mapping[str, float], *,
     nodes = dchi2 = np.empty(0)
     if not normal[0] <= he <= normal[1]:
         nodes = _profile_nodes(float(res.x[2]), normal, lo[2], hi[2])
-        dchi2 = np.maximum(_profile(residuals, res.x, nodes, lo[:2], hi[:2]) - chi2, 0.0) / scale
+        prof = _profile(residuals, res.x, nodes, lo[:2], hi[:2], chi2, scale)
+        dchi2 = np.maximum(prof - chi2, 0.0) / scale
         he_err = _he_error(nodes, dchi2)
     return EwFit(teff=float(res.x[0] * 1000.0), teff_err=float(err[0] * 1000.0),
                  logg=float(res.x[1]), logg_err=float(err[1]), he=he, he_err=he_err,
-                 chi2_red=chi2 / max(len(res.fun) - 3, 1), lines=tuple(names),
+                 chi2_red=chi2_red, lines=tuple(names),
                  profile_log_he=nodes, profile_dchi2=dchi2)
 
 
@@ -244,16 +255,32 @@ def _profile_nodes(best: float, normal: tuple[float, float], lo: float,
     return nodes[(nodes >= lo) & (nodes <= hi)]
 
 
-def _profile(residuals, best: np.ndarray, nodes: np.ndarray, lo, hi) -> np.ndarray:
-    """Chi-square minimized over Teff and log g at each log He/H of ``nodes``."""
+def _profile(residuals, best: np.ndarray, nodes: np.ndarray, lo, hi, chi2_best: float,
+             scale: float) -> np.ndarray:
+    """Chi-square minimized over Teff and log g at each log He/H of ``nodes`` (ascending).
+
+    Walks outward from the best fit in both directions, each fit starting from its
+    neighbour's solution, and stops a direction once the scaled rise exceeds
+    :data:`PROFILE_STOP`; the nodes beyond get that direction's last value (a floor).
+    """
     from scipy.optimize import least_squares
 
-    out = np.empty(nodes.size)
-    start = np.clip(np.asarray(best[:2], float), np.add(lo, 1e-6), np.subtract(hi, 1e-6))
-    for i in range(nodes.size):
-        r = least_squares(residuals, start, bounds=(lo, hi), x_scale=[1.0, 0.25],
-                          args=(nodes[i],))
-        out[i] = float(np.sum(r.fun**2))
+    out = np.full(nodes.size, np.nan)
+    start0 = np.clip(np.asarray(best[:2], float), np.add(lo, 1e-6), np.subtract(hi, 1e-6))
+    first = int(np.argmin(np.abs(nodes - best[2])))
+    for direction in (1, -1):
+        start, last = start0, np.nan
+        i = first if direction == 1 else first - 1
+        while 0 <= i < nodes.size:
+            r = least_squares(residuals, start, bounds=(lo, hi), x_scale=[1.0, 0.25],
+                              args=(nodes[i],))
+            last = out[i] = float(np.sum(r.fun**2))
+            start = np.clip(r.x, np.add(lo, 1e-6), np.subtract(hi, 1e-6))
+            if (last - chi2_best) / scale > PROFILE_STOP:
+                break
+            i += direction
+        rest = slice(i + 1, None) if direction == 1 else slice(0, max(i, 0))
+        out[rest] = last
     return out
 
 

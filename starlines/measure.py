@@ -76,8 +76,6 @@ VSINI_TIERS = (
     ("He I s/p", ("HeI4713", "HeI5016")),
     ("diffuse He I", ("HeI4471", "HeI4922", "HeI4388", "HeI4026")),
 )
-#: All v sin i lines in the order in which they are considered.
-VSINI_LINES = tuple(ident for _, ids in VSINI_TIERS for ident in ids)
 #: The narrow tiers stop adding lines once the combined 1-sigma error is at most this
 #: fraction of max(v sin i, resolution floor): precise enough that the next, intrinsically
 #: broader tier could only add its bias (a choice; on the synthetic model the He I s/p lines
@@ -315,6 +313,18 @@ def _measure_lines(spec: Spectrum, continuum: ContinuumFit | None, lines):
     return _build_table(spec, cf, planned, results, resolution, res_source, vs)
 
 
+def _pixel_step(spec: Spectrum) -> float:
+    """Median pixel size (Angstrom) over the good pixels; NaN with fewer than two."""
+    good = spec.wavelength[spec.good]
+    return float(np.median(np.diff(good))) if good.size > 1 else float("nan")
+
+
+def _good_range(spec: Spectrum) -> tuple[float, float]:
+    """First and last good wavelength (Angstrom)."""
+    good = spec.wavelength[spec.good]
+    return (float(good[0]), float(good[-1])) if good.size else (float("nan"), float("nan"))
+
+
 def region_snr(wavelength: np.ndarray, cf: ContinuumFit, region: tuple[float, float],
                line_wavelength: np.ndarray, chi2_red: np.ndarray) -> float:
     """Effective S/N per pixel in ``region`` (Angstrom), as the line fits see it.
@@ -385,6 +395,8 @@ def _build_table(spec, cf, planned: list[PlannedLine], results, resolution, res_
         vsini_upper_limit=bool(vs.upper_limit) if vs else False,
         vsini_line=vs.line if vs else "", vsini_method=vs.method if vs else "",
         vsini_floor=float(vs.floor) if vs else float("nan"),
+        pixel_step=_pixel_step(spec),
+        wavelength_range=_good_range(spec),
         snr_typing_region=region_snr(spec.wavelength, cf, TYPING_REGION,
                                      data["wavelength_air"].value, cols["chi2_red"]),
         continuum_scatter=float(cf.scatter), continuum_fraction_kept=float(cf.fraction_kept),

@@ -19,8 +19,6 @@ import re
 import time
 from dataclasses import dataclass, field
 
-import numpy as np
-
 from starlines.errors import StarlinesError
 from starlines.flags import MIN_SIGNIFICANCE, join_flags, spectrum_flags
 from starlines.numeric import is_finite as _finite
@@ -174,8 +172,7 @@ def _analyse_spectrum(path: str, spec, options: AnalysisOptions, result: FileRes
                                                "continuum_scatter", "resolution_fwhm",
                                                "resolution_source", "snr_typing_region")
                      if k in meta})
-    good = spec.wavelength[spec.good]
-    row["pixel_step"] = float(np.median(np.diff(good))) if good.size > 1 else math.nan
+    row["pixel_step"] = float(meta.get("pixel_step", math.nan))
     row["vsini_limit"] = bool(meta.get("vsini_upper_limit", False))
     snr = getattr(getattr(measurement, "continuum", None), "snr", None)
     if not _finite(row["snr"]) and snr is not None:

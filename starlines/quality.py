@@ -84,10 +84,13 @@ _BALMER_NAMES = dict(zip(_BALMER_SERIES, ("H9", "H8", "H-epsilon", "H-delta", "H
 _EMISSION_LINES = ("HeII4686", "NIII4634", "NIII4641", "NIII4642", "HI6563")
 
 
-#: S/N per pixel in the classification region (:data:`TYPING_REGION`, the smaller of the
-#: error-array/DER_SNR value and 1 / continuum scatter there) below which no type is
-#: given: sigma(EW) ~ 1.6 A / (S/N) = 0.16 A at S/N 10, as large as the weak lines the
-#: type ratios need (He II 4541, Si III 4553 ~0.1-0.3 A), so every ratio is a 1-sigma guess.
+#: S/N per pixel in the classification region (:data:`TYPING_REGION`; line-table meta
+#: ``snr_typing_region``: median 1 / error of its continuum pixels divided by sqrt of the
+#: median reduced chi-square of its line fits, :func:`starlines.measure.region_snr`) below
+#: which no type is given: with ~0.5 A pixels and lines ~5 A wide, sigma(EW) ~ 1.6 A /
+#: (S/N) (pixel-sum formula, criteria.md section 7a) = 0.16 A at S/N 10, as large as the
+#: weak lines the type ratios need (He II 4541, Si III 4553 ~0.1-0.3 A; common practice),
+#: so every ratio would be a 1-sigma guess.
 MIN_TYPING_SNR = 10.0
 #: Wavelength range (A) of the classification lines (He I 4026-4471, He II 4200/4541,
 #: Si III/IV, Mg II), where the S/N for :data:`MIN_TYPING_SNR` is measured.

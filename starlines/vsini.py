@@ -12,7 +12,7 @@ Two estimators, both built on the classical rotation kernel with linear limb dar
     G(x) = [2 (1 - eps) sqrt(1 - x^2) + (pi eps / 2) (1 - x^2)] / [pi dl_L (1 - eps/3)],
     x = dl / dl_L,  dl_L = lambda v sin i / c,  |x| <= 1.
 
-:func:`kernel_fit_estimate` / :func:`vsini_kernel_fit` (used by the pipeline)
+:func:`kernel_fit_estimate` (used by the measure stage, one call per line)
     Fits the line with a Gaussian of the instrumental FWHM convolved with G for a grid of
     v sin i (linear baseline and depth solved exactly for every grid value), then refines
     the chi-square minimum by a parabola; the error is where chi-square rises by the
@@ -49,7 +49,6 @@ __all__ = [
     "rotation_kernel",
     "first_zero_constant",
     "VsiniResult",
-    "vsini_kernel_fit",
     "kernel_fit_estimate",
     "apply_floor",
     "LineEstimate",
@@ -292,49 +291,6 @@ def apply_floor(vsini: float, vsini_err: float, floor: float, line_id: str,
         return VsiniResult(max(floor, vsini + 2 * vsini_err), float("nan"), True, floor,
                            line_id, method)
     return VsiniResult(vsini, float(vsini_err), False, floor, line_id, method)
-
-
-def vsini_kernel_fit(
-    x: np.ndarray,
-    y: np.ndarray,
-    err: np.ndarray,
-    *,
-    rest: float,
-    centre: float,
-    instrument_fwhm: float,
-    line_id: str = "",
-    epsilon: float = EPSILON,
-    vmax: float = 700.0,
-    step: float = 4.0,
-) -> VsiniResult:
-    """v sin i by fitting instrument (x) rotation profiles to one normalized line.
-
-    Parameters
-    ----------
-    x, y, err : numpy.ndarray
-        Wavelength (Angstrom), normalized flux (neighbouring lines removed) and error,
-        covering the whole line.
-    rest, centre : float
-        Rest and observed centre wavelength (Angstrom).
-    instrument_fwhm : float
-        Instrumental (plus any known intrinsic) Gaussian FWHM in Angstrom.
-    line_id : str
-        Id recorded in the result.
-    epsilon : float
-        Limb darkening.
-    vmax, step : float
-        Grid of trial v sin i in km/s.
-
-    Returns
-    -------
-    VsiniResult
-        An upper limit below the resolution floor of ``rest``.
-    """
-    vbest, err_v = kernel_fit_estimate(x, y, err, centre=centre,
-                                       instrument_fwhm=instrument_fwhm, epsilon=epsilon,
-                                       vmax=vmax, step=step)
-    return apply_floor(vbest, err_v, resolution_floor(rest, instrument_fwhm), line_id,
-                       "kernel fit")
 
 
 def _crossing(v: np.ndarray, chi2: np.ndarray, level: float, k: int, direction: int) -> float:
