@@ -28,16 +28,21 @@ from starlines.synth import synthetic_spectrum
 FWHM, STEP, SNR = 2.5, 1.0, 250.0
 
 
-def _measured(teff, logg, he, seed=7, vsini=60.0):
+def _measurement(teff, logg, he, seed=7, vsini=60.0, emission=None):
+    """Measurement of the forward model at FWHM, STEP and SNR (white noise, fixed seed)."""
     wave = np.arange(3900.0, 5000.0, STEP)
     flux = synthetic_spectrum(wave, teff=teff, logg=logg, he=he, vsini=vsini,
-                              resolution_fwhm=FWHM)
+                              resolution_fwhm=FWHM, emission_lines=emission)
     flux = flux + np.random.default_rng(seed).normal(0.0, 1.0 / SNR, wave.size)
     spec = Spectrum(wavelength=wave, flux=flux, uncertainty=np.full(wave.size, 1.0 / SNR),
                     medium="air", path=f"synthetic {teff} {logg} {he}")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return line_values(measure_spectrum(spec).table)
+        return measure_spectrum(spec)
+
+
+def _measured(teff, logg, he, seed=7, vsini=60.0):
+    return line_values(_measurement(teff, logg, he, seed, vsini).table)
 
 
 def _fit(values, teff, logg, teff_err=1500.0):
@@ -115,15 +120,7 @@ def test_classify_takes_gravity_and_luminosity_from_the_ew_fit(lumnumber, expect
     from starlines.teffscale import type_parameters
 
     teff, logg = type_parameters(11.0, lumnumber)
-    wave = np.arange(3900.0, 5000.0, STEP)
-    flux = synthetic_spectrum(wave, teff=teff, logg=logg, he=0.1, vsini=60.0,
-                              resolution_fwhm=FWHM)
-    flux = flux + np.random.default_rng(3).normal(0.0, 1.0 / SNR, wave.size)
-    spec = Spectrum(wavelength=wave, flux=flux, uncertainty=np.full(wave.size, 1.0 / SNR),
-                    medium="air", path="synthetic B1")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        c = classify(measure_spectrum(spec))
+    c = classify(_measurement(teff, logg, 0.1, seed=3))
     assert c.logg == pytest.approx(logg, abs=0.2)
     assert c.lumclass.rstrip(":") == expected
     assert "EW fit" in c.notes
@@ -134,16 +131,8 @@ def test_no_ew_fit_with_balmer_emission():
     # as low gravity, so a star with Balmer emission keeps the model's log g and He/H
     from starlines.classify import classify
 
-    wave = np.arange(3900.0, 5000.0, STEP)
-    flux = synthetic_spectrum(wave, teff=20600.0, logg=4.0, he=0.1, vsini=60.0,
-                              resolution_fwhm=FWHM,
-                              emission_lines={"HI4861": -8.0, "HI4340": -3.0})
-    flux = flux + np.random.default_rng(4).normal(0.0, 1.0 / SNR, wave.size)
-    spec = Spectrum(wavelength=wave, flux=flux, uncertainty=np.full(wave.size, 1.0 / SNR),
-                    medium="air", path="synthetic B2 Ve")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        c = classify(measure_spectrum(spec))
+    c = classify(_measurement(20600.0, 4.0, 0.1, seed=4,
+                              emission={"HI4861": -8.0, "HI4340": -3.0}))
     assert "balmer-emission" in c.flags
     assert math.isnan(c.helium_sigma) and "Balmer emission" in c.notes
 
