@@ -24,6 +24,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.utils.validation import check_is_fitted
 
+from starlines.lumrules import balmer_emission
 from starlines.rules import DETECTION_SIGMA, EW_FLOOR, LineValue
 from starlines.sptype import round_subtype
 from starlines.teffscale import subtype_for_parameters
@@ -136,13 +137,6 @@ def _err2(v: LineValue) -> float:
     return v.err**2 if math.isfinite(v.err) else 0.0
 
 
-def _wind_filled(values: Mapping[str, LineValue]) -> bool:
-    """A Balmer line in net emission: the star's wind fills in its Balmer absorption."""
-    from starlines.lumrules import balmer_emission
-
-    return bool(balmer_emission(values))
-
-
 def feature_vector(values: Mapping[str, LineValue], features=FEATURES) -> np.ndarray:
     """Features of one spectrum; lines missing, unusable or in emission give NaN.
 
@@ -160,7 +154,7 @@ def feature_vector(values: Mapping[str, LineValue], features=FEATURES) -> np.nda
         return np.full(len(features), np.nan)
     x = feature_matrix(ew, err, features)[0]
     x[np.isnan(feature_limits(values, features))] = np.nan
-    if _wind_filled(values):
+    if balmer_emission(values):  # a Balmer line in net emission: wind-filled
         x[[any(i.startswith("HI") for i in f.numerator + f.denominator)
            for f in features]] = np.nan
     return x
